@@ -1,0 +1,41 @@
+"""The parameters the station measures: their names, units, and which regions they take.
+
+One table, used by the limit-table loader (what may be limited), the sequencer (what it
+produces) and the datalog (PARAM and UNITS columns).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class ParameterInfo:
+    name: str
+    units: str          # units of RESULT in the datalog and of limits in tables
+    region_kind: str | None  # None: no region; "slope": slope regions (+ "full"); "step": transition regions
+    limitable: bool
+    description: str
+
+
+FULL_RANGE = "full"  # pseudo-region: end-point slope over the whole common-mode sweep
+
+PARAMETERS: dict[str, ParameterInfo] = {p.name: p for p in [
+    ParameterInfo("iq", "A", None, True, "quiescent supply current at nominal supply"),
+    ParameterInfo("vos", "V", None, True, "input offset voltage at nominal supply, mid common-mode"),
+    ParameterInfo("cmrr", "dB", "slope", True, "common-mode rejection of a region, -20 log10 |dVos/dVcm|"),
+    ParameterInfo("cm_step", "V", "step", True, "offset step across a transition region (max - min Vos)"),
+    ParameterInfo("vos_worst", "V", "step", True, "worst |Vos| inside a transition region"),
+    ParameterInfo("aol", "dB", None, True, "open-loop gain, 20 log10 |dVout/dVos|"),
+    ParameterInfo("psrr", "dB", None, True, "supply rejection, -20 log10 |dVos/dVs|"),
+    # Informational rows: logged for offline analysis, never limited.
+    ParameterInfo("cmrr_slope", "V/V", "slope", False, "signed least-squares slope dVos/dVcm of a region"),
+    ParameterInfo("aol_slope", "V/V", None, False, "signed slope dVos/dVout"),
+    ParameterInfo("psrr_slope", "V/V", None, False, "signed slope dVos/dVs"),
+    ParameterInfo("vos_cm", "V", "point", False, "raw Vos at one common-mode point"),
+    ParameterInfo("vos_force", "V", None, False, "raw Vos at one commanded output level"),
+    ParameterInfo("vos_span", "V", None, False, "raw Vos at one supply span"),
+    ParameterInfo("contact_iq", "A", None, False, "supply current of the contact check"),
+]}
+
+LIMITABLE = {name for name, info in PARAMETERS.items() if info.limitable}

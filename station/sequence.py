@@ -327,22 +327,15 @@ def check_region_coverage(sequence: Sequence, region_bounds: dict[str, tuple[flo
 
     A slope region needs two points for a least-squares slope; a step region needs one.
     """
-    from station.measure import points_per_region
+    from station.measure import region_of, region_point_problems
 
     for step in sequence.steps("cm_sweep"):
         vcms = step.point_vcms(sequence.span_v)
-        counts = points_per_region(vcms, region_bounds)
+        where = {"line": step.line, "key": f"tests[{step.index - 1}]"}
         for point, vcm in zip(step.points, vcms, strict=True):
-            if not any(lo <= vcm <= hi for lo, hi in region_bounds.values()):
+            if region_of(vcm, region_bounds) is None:
                 raise ConfigError(sequence.source, f"common-mode point '{point}' lies outside every "
-                                  "region of the limit table", line=step.line,
-                                  key=f"tests[{step.index - 1}]", hint="remove it or widen the regions")
-        for name, kind in region_kinds.items():
-            need = 2 if kind == "slope" else 1
-            have = counts.get(name, 0)
-            if have < need:
-                lo, hi = region_bounds[name]
-                raise ConfigError(sequence.source, f"region '{name}' ({lo:+.3f} V to {hi:+.3f} V) has "
-                                  f"{have} common-mode point{'s' if have != 1 else ''}; it needs at least {need}",
-                                  line=step.line, key=f"tests[{step.index - 1}]",
-                                  hint="add points inside that region")
+                                  "region of the limit table", hint="remove it or widen the regions", **where)
+        problems = region_point_problems(vcms, region_bounds, region_kinds)
+        if problems:
+            raise ConfigError(sequence.source, problems[0], hint="add points inside that region", **where)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from station.measure import region_of
 from station.parameters import FULL_RANGE, PARAMETERS
 from station.sequence import Sequence, TestStep
 
@@ -35,15 +36,6 @@ _REGION_FIGURES = {"slope": (("cmrr_slope", "CMRR slope"), ("cmrr", "CMRR")),
                    "step": (("cm_step", "Crossover offset step"), ("vos_worst", "Worst |Vos|"))}
 
 
-def region_of_point(vcm: float, bounds: dict[str, tuple[float, float]]) -> str | None:
-    """The region a point falls in: half-open [lo, hi), the topmost region closed at its top."""
-    top = max(hi for _, hi in bounds.values()) if bounds else None
-    for name, (lo, hi) in bounds.items():
-        if lo <= vcm < hi or (vcm == hi == top):
-            return name
-    return None
-
-
 def step_tests(step: TestStep, sequence: Sequence, regions: list[tuple[str, str]],
                bounds: dict[str, tuple[float, float]]) -> tuple[list[TestDef], list[TestDef]]:
     """(raw point rows, computed figure rows) that `step` logs, in execution order."""
@@ -64,7 +56,7 @@ def step_tests(step: TestStep, sequence: Sequence, regions: list[tuple[str, str]
     elif step.kind == "cm_sweep":
         for i, (point, vcm) in enumerate(zip(step.points, step.point_vcms(span), strict=True)):
             raw.append(TestDef(base + RAW_OFFSET + i, f"Vos at VCM {vcm:+.3f} V ({point})", "vos_cm",
-                               region_of_point(vcm, bounds), vcm))
+                               region_of(vcm, bounds), vcm))
         for name, kind in regions:
             for param, text in _REGION_FIGURES[kind]:
                 figure(param, f"{text} {name} region", name, None)

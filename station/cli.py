@@ -50,7 +50,7 @@ def main() -> None:
 
 def _run_lot(bench_path: Path, sequence_path: Path, limits_path: Path, out: Path, lot_id: str,
              operator: str, mode: str, force: bool, console: Console, expected_parts: int | None,
-             after=None) -> int:
+             after=None, stdf: bool = False) -> int:
     """Plan, open the bench, run the lot with progress, print the summary. Returns the exit code."""
     from station.bench import open_bench
     from station.console import LotProgress, bin_summary, lot_line
@@ -74,6 +74,7 @@ def _run_lot(bench_path: Path, sequence_path: Path, limits_path: Path, out: Path
             tally = runner.run()
         if after is not None:
             after(out)
+        _close_datalog(out, stdf, console)
     finally:
         signal.signal(signal.SIGTERM, previous)
         bench.close()
@@ -85,6 +86,16 @@ def _run_lot(bench_path: Path, sequence_path: Path, limits_path: Path, out: Path
         console.print(f"[bold red]lot stopped:[/] {tally.stopped_because}; bench in safe state")
         return EXIT_STOPPED
     return 0
+
+
+def _close_datalog(out: Path, stdf: bool, console: Console) -> None:
+    """End-of-lot files: the binary STDF if asked, then the manifest over everything."""
+    from station.manifest import write_manifest
+    from station.stdf_export import write_stdf
+
+    if stdf:
+        console.print(f"STDF V4: {write_stdf(out)}")
+    write_manifest(out)
 
 
 @main.command("dry-run")
@@ -103,8 +114,10 @@ def _run_lot(bench_path: Path, sequence_path: Path, limits_path: Path, out: Path
 @click.option("--speed", type=click.FloatRange(0.1, 1000), default=1.0, show_default=True,
               help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
+@click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 def dry_run(parts: int, sites: int, seed: int, out: Path | None, lot_id: str | None, operator: str,
-            bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float, force: bool) -> None:
+            bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float, force: bool,
+            stdf: bool) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -123,7 +136,8 @@ def dry_run(parts: int, sites: int, seed: int, out: Path | None, lot_id: str | N
         bench_file.write_text(header + yaml.safe_dump(config, sort_keys=False), encoding="utf-8")
         console.print(f"dry run: simulated bench on loopback, seed {seed}, {parts} parts, {sites} site(s)")
         code = _run_lot(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
-                        console, parts, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"))
+                        console, parts, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"),
+                        stdf=stdf)
     sys.exit(code)
 
 
@@ -149,13 +163,14 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--out", type=click.Path(path_type=Path), required=True, help="Datalog folder.")
 @click.option("--parts", "expected_parts", type=click.IntRange(1), default=None, help="Expected lot size, for the progress bar.")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
+@click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str, operator: str, out: Path,
-        expected_parts: int | None, force: bool) -> None:
+        expected_parts: int | None, force: bool, stdf: bool) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
     if not lot_id.strip():
         raise Refused("--lot must not be empty")
     sys.exit(_run_lot(bench_path, sequence_path, limits_path, out, lot_id.strip(), operator, "run", force,
-                      Console(), expected_parts))
+                      Console(), expected_parts, stdf=stdf))
 
 
 @main.group("sim")
@@ -192,6 +207,15 @@ def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth
     serve_until_interrupted(settings, write_bench=write_bench, echo=click.echo, truth_path=truth,
                             faults=parsed)
 
+
+def _register_datalog_tools() -> None:
+    from station.cli_datalog import convert_command, verify_command
+
+    main.add_command(convert_command)
+    main.add_command(verify_command)
+
+
+_register_datalog_tools()
 
 if __name__ == "__main__":
     main()

@@ -1,0 +1,83 @@
+"""A DC voltmeter on a site's loop measurement node.
+
+Reads can take long (100 NPLC at 50 Hz is 2 s per sample, doubled by autozero), so every
+query that waits for readings extends its timeout by the expected integration time.
+`start()` then `fetch()` lets several DMMs integrate at the same time.
+"""
+
+from __future__ import annotations
+
+import math
+
+from drivers.errors import RequestRefused
+from drivers.limits import require_within
+from drivers.scpi_link import ScpiLink
+from drivers.scpi_values import scpi_number
+
+RANGES_V = (0.1, 1.0, 10.0, 100.0, 1000.0)
+NPLC_MIN, NPLC_MAX = 0.02, 100.0
+SAMPLES_MAX = 1000
+
+
+class LoopDmm:
+    def __init__(self, link: ScpiLink, line_hz: float) -> None:
+        if line_hz not in (50.0, 60.0):
+            raise RequestRefused(link.role, "line frequency", line_hz, "50 Hz or 60 Hz")
+        self.link = link
+        self.line_hz = float(line_hz)
+        # The *RST defaults, until configure() says otherwise.
+        self.nplc = 1.0
+        self.range_v: float | None = 10.0
+        self.autozero = True
+        self.samples = 1
+
+    @property
+    def role(self) -> str:
+        return self.link.role
+
+    def configure(self, nplc: float, range_v: float | None, autozero: bool, samples: int = 1) -> None:
+        """DC volts with the given integration, range (None = autorange), autozero and sample count."""
+        nplc = require_within(self.role, "NPLC", nplc, NPLC_MIN, NPLC_MAX, "", "instrument range")
+        if range_v is not None and float(range_v) not in RANGES_V:
+            raise RequestRefused(self.role, "range", f"{range_v} V",
+                                 ", ".join(f"{r:g}" for r in RANGES_V) + " V or autorange")
+        if isinstance(samples, bool) or not isinstance(samples, int) or not 1 <= samples <= SAMPLES_MAX:
+            raise RequestRefused(self.role, "sample count", samples, f"1 to {SAMPLES_MAX}")
+        range_part = (f":CONF:VOLT:DC {scpi_number(range_v)}" if range_v is not None
+                      else ":CONF:VOLT:DC;:VOLT:DC:RANG:AUTO ON")
+        self.link.write(f"SYST:LFR {int(self.line_hz)};{range_part};"
+                        f":VOLT:DC:NPLC {scpi_number(nplc)};"
+                        f":ZERO:AUTO {'ON' if autozero else 'OFF'};:SAMP:COUN {samples}")
+        self.nplc, self.range_v, self.autozero, self.samples = nplc, range_v, autozero, samples
+        self.link.check_errors()
+
+    @property
+    def integration_time_s(self) -> float:
+        """Expected time of one trigger: all samples, each NPLC / line frequency, x2 with autozero."""
+        per_sample = self.nplc / self.line_hz * (2.0 if self.autozero else 1.0)
+        return per_sample * self.samples
+
+    def read(self) -> float:
+        """Trigger and read; the mean of the samples, +-inf on overload (9.9E37)."""
+        return _mean(self.read_samples())
+
+    def read_samples(self) -> list[float]:
+        return self.link.query_floats("READ?", timeout_s=self._wait_s())
+
+    def start(self) -> None:
+        """INIT: start integrating now; collect with fetch()."""
+        self.link.write("INIT")
+
+    def fetch(self) -> list[float]:
+        """The readings of the last start(), waiting for the integration to finish."""
+        return self.link.query_floats("FETC?", timeout_s=self._wait_s())
+
+    def _wait_s(self) -> float:
+        return self.link.timeout_s + self.integration_time_s
+
+
+def _mean(values: list[float]) -> float:
+    overloads = [v for v in values if math.isinf(v)]
+    if overloads:
+        return overloads[0]     # an overloaded sample makes the whole reading an overload
+    return sum(values) / len(values)

@@ -1,0 +1,166 @@
+"""Part handlers: something that seats parts in the sites and sorts them into bins.
+
+`ScpiHandler` drives a handler over the HANDler commands; `ManualHandler` asks the operator
+to do it. The sequencer sees only the `PartHandler` protocol.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Protocol, runtime_checkable
+
+from drivers.errors import InstrumentBadReply, RequestRefused
+from drivers.limits import require_site
+from drivers.scpi_link import ScpiLink
+
+MIN_BIN, MAX_BIN = 1, 99
+EMPTY_SITE = "-"
+
+
+@runtime_checkable
+class PartHandler(Protocol):
+    def sites(self) -> int:
+        """Sites per index."""
+        ...
+
+    def next_index(self) -> list[str | None] | None:
+        """Seat the next parts: one id per site (None for an empty site); None at the end of the lot."""
+        ...
+
+    def assign_bin(self, site: int, hard_bin: int, label: str = "") -> None:
+        """Sort the part in `site` (1-based) to `hard_bin`."""
+        ...
+
+    def reseat(self, site: int) -> None:
+        """Lift and re-seat the part in `site` (contact retest)."""
+        ...
+
+
+def _require_bin(role: str, hard_bin: int) -> int:
+    if isinstance(hard_bin, bool) or not isinstance(hard_bin, int) or not MIN_BIN <= hard_bin <= MAX_BIN:
+        raise RequestRefused(role, "hard bin", hard_bin, f"{MIN_BIN} to {MAX_BIN}")
+    return hard_bin
+
+
+class ScpiHandler:
+    """A handler that understands the HANDler command set."""
+
+    def __init__(self, link: ScpiLink) -> None:
+        self.link = link
+        self._sites: int | None = None
+
+    @property
+    def role(self) -> str:
+        return self.link.role
+
+    def sites(self) -> int:
+        if self._sites is None:
+            value = self.link.query_float("HAND:SIT?")
+            if not value.is_integer() or not 1 <= value <= 4:
+                raise InstrumentBadReply(self.role, self.link.resource, "HAND:SIT?",
+                                         f"returned {value:g}, not a site count of 1 to 4")
+            self._sites = int(value)
+        return self._sites
+
+    def next_index(self) -> list[str | None] | None:
+        reply = self.link.query("HAND:NEXT?")
+        if reply.strip().upper() == "END":
+            return None
+        ids: list[str | None] = [None if part.strip() == EMPTY_SITE else part.strip()
+                                 for part in reply.split(",")]
+        if len(ids) != self.sites() or any(part == "" for part in ids):
+            raise InstrumentBadReply(self.role, self.link.resource, "HAND:NEXT?",
+                                     f"returned {reply!r}: expected {self.sites()} part ids")
+        return ids
+
+    def assign_bin(self, site: int, hard_bin: int, label: str = "") -> None:
+        site = require_site(self.role, site, self.sites())
+        self.link.write(f"HAND:BIN {site},{_require_bin(self.role, hard_bin)}")
+
+    def reseat(self, site: int) -> None:
+        self.link.write(f"HAND:RES {require_site(self.role, site, self.sites())}")
+
+    def remaining(self) -> int:
+        """Parts not yet presented."""
+        return int(self.link.query_float("HAND:COUN?"))
+
+
+class ManualHandler:
+    """The operator seats the parts and types their ids; the station tells them the bin."""
+
+    role = "handler"
+
+    def __init__(self, sites: int, ask: Callable[[str], str], tell: Callable[[str], None]) -> None:
+        if not 1 <= sites <= 4:
+            raise RequestRefused(self.role, "sites", sites, "1 to 4")
+        self._sites = sites
+        self._ask = ask
+        self._tell = tell
+        self._tested: set[str] = set()
+        self._current: list[str | None] = []
+
+    def sites(self) -> int:
+        return self._sites
+
+    def next_index(self) -> list[str | None] | None:
+        while True:
+            index = self._ask_index()
+            if index is None:
+                return None
+            if any(part is not None for part in index):
+                self._tested.update(part for part in index if part is not None)
+                self._current = index
+                return index
+            self._tell("No part seated in any site: seat at least one part, "
+                       "or leave site 1 empty to end the lot.")
+
+    def _ask_index(self) -> list[str | None] | None:
+        index: list[str | None] = []
+        for site in range(1, self._sites + 1):
+            while True:
+                answer = self._ask(self._prompt(site)).strip()
+                problem = self._problem(site, answer, index)
+                if problem is None:
+                    break
+                self._tell(problem)
+            if site == 1 and answer == "":
+                return None
+            index.append(None if answer == EMPTY_SITE else answer)
+        return index
+
+    def _prompt(self, site: int) -> str:
+        if site == 1:
+            extra = "press Enter with no id to end the lot"
+        else:
+            extra = f"type {EMPTY_SITE} to leave the site empty"
+        if self._sites > 1 and site == 1:
+            extra += f", {EMPTY_SITE} to leave it empty"
+        return f"Seat a part in site {site} and type its id ({extra})"
+
+    def _problem(self, site: int, answer: str, index: list[str | None]) -> str | None:
+        if answer == "":
+            if site == 1:
+                return None
+            return (f"Site {site}: no id typed. Type the part's id, or {EMPTY_SITE} "
+                    "if the site is left empty.")
+        if answer == EMPTY_SITE:
+            return None
+        if "," in answer:
+            return f"Site {site}: {answer!r} contains a comma; part ids cannot."
+        if answer in index:
+            return f"Site {site}: {answer!r} is already seated in another site of this index."
+        if answer in self._tested:
+            return f"Site {site}: {answer!r} was already tested in this lot; check the id."
+        return None
+
+    def assign_bin(self, site: int, hard_bin: int, label: str = "") -> None:
+        site = require_site(self.role, site, self._sites)
+        _require_bin(self.role, hard_bin)
+        part = self._current[site - 1] if site <= len(self._current) else None
+        what = f"the part {part!r}" if part else "the part"
+        suffix = f" ({label})" if label else ""
+        self._tell(f"Site {site}: put {what} in bin {hard_bin}{suffix}.")
+
+    def reseat(self, site: int) -> None:
+        site = require_site(self.role, site, self._sites)
+        self._ask(f"Site {site}: lift the part, seat it again and press Enter")

@@ -1,0 +1,301 @@
+"""One SCPI conversation with one instrument over pyvisa: the only module that imports pyvisa.
+
+The link turns pyvisa's and the socket's failures into the exceptions of `drivers.errors`,
+each naming the role, the resource and the command, so a driver never sees a VisaIOError.
+"""
+
+from __future__ import annotations
+
+import math
+import select
+import socket
+import threading
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any
+
+import pyvisa
+from pyvisa import constants
+
+from drivers.errors import (
+    InstrumentBadReply,
+    InstrumentConnectionLost,
+    InstrumentError,
+    InstrumentOpenError,
+    InstrumentReportedError,
+    InstrumentTimeout,
+)
+from drivers.scpi_values import parse_error_entry, parse_scpi_bool, parse_scpi_float
+
+# More than the SCPI queue depth (16) plus its overflow entry: a queue that never empties is broken.
+_MAX_ERROR_READS = 20
+
+_CONNECTION_CODES = {
+    constants.StatusCode.error_connection_lost,
+    constants.StatusCode.error_io,
+    constants.StatusCode.error_invalid_object,
+    constants.StatusCode.error_closing_failed,
+}
+
+
+class ScpiLink:
+    """A VISA resource opened for SCPI text messages, with errors mapped to our exceptions."""
+
+    def __init__(self, role: str, resource: str, visa_library: str = "@py",
+                 timeout_s: float = 5.0) -> None:
+        self.role = role
+        self.resource = resource
+        self.visa_library = visa_library
+        self._timeout_s = float(timeout_s)
+        self.transactions = 0          # messages sent (writes and queries)
+        self._manager: Any = None
+        self._instrument: Any = None
+        self._last_command: str | None = None
+        self._stale = False            # a reply may still be in flight after a failed query
+        self._lock = threading.Lock()
+
+    # -- life cycle ------------------------------------------------------------------
+
+    @property
+    def is_open(self) -> bool:
+        return self._instrument is not None
+
+    @property
+    def timeout_s(self) -> float:
+        return self._timeout_s
+
+    @timeout_s.setter
+    def timeout_s(self, value: float) -> None:
+        self._timeout_s = float(value)
+        if self._instrument is not None:
+            self._instrument.timeout = self._timeout_s * 1000.0
+
+    def open(self) -> None:
+        """Open the resource; InstrumentOpenError if the library or the resource cannot be opened."""
+        if self._instrument is not None:
+            return
+        try:
+            # An empty library string means the system's default VISA library.
+            self._manager = (pyvisa.ResourceManager(self.visa_library) if self.visa_library
+                             else pyvisa.ResourceManager())
+        except Exception as exc:  # pyvisa raises several kinds for a missing library
+            raise InstrumentOpenError(self.role, self.resource, None,
+                                      f"cannot load VISA library {self.visa_library!r}: {exc}") from exc
+        try:
+            instrument = self._manager.open_resource(
+                self.resource, open_timeout=int(self._timeout_s * 1000))
+        except Exception as exc:
+            self._close_manager()
+            raise InstrumentOpenError(self.role, self.resource, None,
+                                      f"cannot be opened: {exc}") from exc
+        instrument.timeout = self._timeout_s * 1000.0
+        instrument.write_termination = "\n"
+        # Sockets and serial lines have no END signal: the newline ends every reply.
+        upper = self.resource.upper()
+        if upper.endswith("::SOCKET") or upper.startswith("ASRL"):
+            instrument.read_termination = "\n"
+        self._instrument = instrument
+        self._stale = False
+
+    def close(self) -> None:
+        """Close the resource; never raises (it is called on the way out of errors)."""
+        instrument, self._instrument = self._instrument, None
+        if instrument is not None:
+            try:
+                instrument.close()
+            except Exception:  # closing a dead connection may fail; nothing left to do
+                pass
+        self._close_manager()
+
+    def reconnect(self) -> None:
+        """Close and open again, e.g. after a dropped connection or a timeout."""
+        self.close()
+        self.open()
+
+    def _close_manager(self) -> None:
+        # pyvisa shares one ResourceManager per VISA library: closing it would close every
+        # other instrument's session too, so a link only lets go of its reference.
+        self._manager = None
+
+    def __enter__(self) -> ScpiLink:
+        self.open()
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
+    # -- transactions ----------------------------------------------------------------
+
+    def write(self, command: str) -> None:
+        with self._lock:
+            instrument = self._prepare(command)
+            try:
+                instrument.write(command)
+            except Exception as exc:
+                self._stale = True
+                raise self._translate(exc, command, self._timeout_s) from exc
+            finally:
+                self.transactions += 1
+            self._last_command = command
+
+    def query(self, command: str, timeout_s: float | None = None) -> str:
+        """Send a query and return its reply without the terminator."""
+        wait = self._timeout_s if timeout_s is None else float(timeout_s)
+        with self._lock:
+            instrument = self._prepare(command)
+            try:
+                with self._timeout(instrument, wait):
+                    instrument.write(command)
+                    reply = instrument.read()
+            except Exception as exc:
+                self._stale = True
+                raise self._translate(exc, command, wait) from exc
+            finally:
+                self.transactions += 1
+            self._last_command = command
+        return reply.strip()
+
+    def query_float(self, command: str, timeout_s: float | None = None) -> float:
+        """A numeric reply; SCPI overload (9.9E37) becomes +-inf."""
+        values = self.query_floats(command, timeout_s)
+        if len(values) != 1:
+            raise InstrumentBadReply(self.role, self.resource, command,
+                                     f"returned {len(values)} values where one was expected")
+        return values[0]
+
+    def query_floats(self, command: str, timeout_s: float | None = None) -> list[float]:
+        """A comma-separated numeric reply."""
+        reply = self.query(command, timeout_s)
+        try:
+            return [parse_scpi_float(part) for part in reply.split(",")]
+        except ValueError:
+            raise InstrumentBadReply(self.role, self.resource, command,
+                                     f"returned {_shorten(reply)!r}, not a number") from None
+
+    def query_bools(self, command: str, timeout_s: float | None = None) -> list[bool]:
+        """A comma-separated boolean reply (1/0, ON/OFF)."""
+        reply = self.query(command, timeout_s)
+        try:
+            return [parse_scpi_bool(part) for part in reply.split(",")]
+        except ValueError:
+            raise InstrumentBadReply(self.role, self.resource, command,
+                                     f"returned {_shorten(reply)!r}, not 1/0 values") from None
+
+    def query_bool(self, command: str, timeout_s: float | None = None) -> bool:
+        values = self.query_bools(command, timeout_s)
+        if len(values) != 1:
+            raise InstrumentBadReply(self.role, self.resource, command,
+                                     f"returned {len(values)} values where one was expected")
+        return values[0]
+
+    def check_errors(self) -> None:
+        """Read SYST:ERR? until it is empty; InstrumentReportedError lists what was queued."""
+        blamed = self._last_command
+        found: list[tuple[int, str]] = []
+        for _ in range(_MAX_ERROR_READS):
+            reply = self.query("SYST:ERR?")
+            try:
+                code, message = parse_error_entry(reply)
+            except ValueError:
+                raise InstrumentBadReply(self.role, self.resource, "SYST:ERR?",
+                                         f"returned {_shorten(reply)!r}, not 'code,\"message\"'") from None
+            if code == 0:
+                break
+            found.append((code, message))
+        else:
+            raise InstrumentBadReply(self.role, self.resource, "SYST:ERR?",
+                                     f"error queue did not empty after {_MAX_ERROR_READS} reads")
+        self._last_command = blamed
+        if found:
+            raise InstrumentReportedError(self.role, self.resource, blamed, found)
+
+    def identify(self) -> str:
+        return self.query("*IDN?")
+
+    def reset(self) -> None:
+        """*RST and *CLS, then wait until the instrument has done them."""
+        self.write("*RST")
+        self.write("*CLS")
+        self.query("*OPC?")
+
+    # -- internals -------------------------------------------------------------------
+
+    def _prepare(self, command: str) -> Any:
+        instrument = self._instrument
+        if instrument is None:
+            raise InstrumentConnectionLost(self.role, self.resource, command,
+                                           "not sent: the link is not open (call open() or reconnect())")
+        state = _socket_state(instrument)
+        if state == "closed":
+            raise InstrumentConnectionLost(self.role, self.resource, command,
+                                           "not sent: the instrument closed the connection")
+        if self._stale or state == "data":
+            # A late reply to an earlier, failed query would otherwise answer this one.
+            try:
+                instrument.clear()
+            except Exception:
+                pass
+            self._stale = False
+        return instrument
+
+    @contextmanager
+    def _timeout(self, instrument: Any, seconds: float) -> Iterator[None]:
+        if math.isclose(seconds, self._timeout_s):
+            yield
+            return
+        instrument.timeout = seconds * 1000.0
+        try:
+            yield
+        finally:
+            instrument.timeout = self._timeout_s * 1000.0
+
+    def _translate(self, exc: Exception, command: str, wait_s: float) -> InstrumentError:
+        if isinstance(exc, InstrumentError):
+            return exc
+        if isinstance(exc, pyvisa.errors.VisaIOError):
+            if exc.error_code == constants.StatusCode.error_timeout:
+                # pyvisa-py reports a socket closed by the peer as a timeout: tell them apart.
+                if self._instrument is not None and _socket_state(self._instrument) == "closed":
+                    return InstrumentConnectionLost(self.role, self.resource, command,
+                                                    "failed: the instrument closed the connection")
+                return InstrumentTimeout(self.role, self.resource, command,
+                                         f"timed out after {wait_s:.1f} s")
+            if exc.error_code in _CONNECTION_CODES:
+                return InstrumentConnectionLost(self.role, self.resource, command,
+                                                f"failed: connection lost ({exc.abbreviation})")
+            return InstrumentError(self.role, self.resource, command, f"failed: {exc}")
+        if isinstance(exc, pyvisa.errors.InvalidSession):
+            return InstrumentConnectionLost(self.role, self.resource, command,
+                                            "failed: the VISA session is closed (reconnect)")
+        if isinstance(exc, OSError):
+            return InstrumentConnectionLost(self.role, self.resource, command,
+                                            f"failed: connection lost ({exc.__class__.__name__}: {exc})")
+        if isinstance(exc, UnicodeDecodeError):
+            return InstrumentBadReply(self.role, self.resource, command,
+                                      "returned bytes that are not text (garbled reply)")
+        return InstrumentError(self.role, self.resource, command, f"failed: {exc!r}")
+
+
+def _socket_state(instrument: Any) -> str:
+    """'closed', 'data' (unread bytes waiting), 'idle', or 'unknown' for non-socket backends.
+
+    Only pyvisa-py exposes its socket; other VISA libraries report a lost link themselves.
+    """
+    try:
+        session = instrument.visalib.sessions[instrument.session]
+        sock = session.interface
+    except Exception:
+        return "unknown"
+    if not isinstance(sock, socket.socket) or sock.fileno() < 0:
+        return "unknown"
+    try:
+        readable, _, _ = select.select([sock], [], [], 0)
+        if not readable:
+            return "idle"
+        return "closed" if sock.recv(1, socket.MSG_PEEK) == b"" else "data"
+    except OSError:
+        return "closed"
+
+
+def _shorten(text: str, limit: int = 60) -> str:
+    return text if len(text) <= limit else text[:limit] + "..."

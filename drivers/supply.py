@@ -1,0 +1,120 @@
+"""The two-channel rail supply: channel 1 is V+, channel 2 is V-.
+
+Every setting is checked against the instrument's range and the bench's safety limits before
+it is sent; both rails always move in one compound message so they change together.
+"""
+
+from __future__ import annotations
+
+import time
+from typing import Literal
+
+from drivers.errors import InstrumentError, RequestRefused
+from drivers.limits import require_within
+from drivers.scpi_link import ScpiLink
+from drivers.scpi_values import scpi_number
+
+Rail = Literal["V+", "V-"]
+
+INSTRUMENT_MAX_V = 15.0        # bipolar channels, -15 V to +15 V
+INSTRUMENT_MIN_A = 100e-6      # compliance range of the instrument
+INSTRUMENT_MAX_A = 100e-3
+_CHANNEL = {"V+": 1, "V-": 2}
+
+
+class DualRailSupply:
+    def __init__(self, link: ScpiLink, max_rail_v: float, compliance_a: float) -> None:
+        self.link = link
+        self.max_rail_v = min(float(max_rail_v), INSTRUMENT_MAX_V)
+        self.compliance_a = float(compliance_a)
+
+    @property
+    def role(self) -> str:
+        return self.link.role
+
+    def configure(self, compliance_a: float | None = None) -> None:
+        """Set the compliance (default: the bench's safety compliance) and check the error queue."""
+        self.set_compliance(self.compliance_a if compliance_a is None else compliance_a)
+        self.link.check_errors()
+
+    def set_compliance(self, amps: float) -> None:
+        """Current compliance of both rails; refused above the bench's safety compliance."""
+        high = min(self.compliance_a, INSTRUMENT_MAX_A)
+        amps = require_within(self.role, "current compliance", amps, INSTRUMENT_MIN_A, high, "A",
+                              "bench safety compliance and instrument range")
+        value = scpi_number(amps)
+        self.link.write(f"INST:NSEL 1;:CURR {value};:INST:NSEL 2;:CURR {value}")
+
+    def set_rails(self, v_pos: float, v_neg: float) -> None:
+        """Program V+ and V- together; refused beyond max_rail, the instrument, or V+ < V-."""
+        limit = self.max_rail_v
+        reason = f"bench safety limit max_rail {self.max_rail_v:g} V, instrument +-{INSTRUMENT_MAX_V:g} V"
+        v_pos = require_within(self.role, "V+", v_pos, -limit, limit, "V", reason)
+        v_neg = require_within(self.role, "V-", v_neg, -limit, limit, "V", reason)
+        if v_pos < v_neg:
+            raise RequestRefused(self.role, "rails", f"V+ {v_pos:g} V, V- {v_neg:g} V",
+                                 "V+ >= V-", "the rails would be reversed")
+        self.link.write(f"INST:NSEL 1;:VOLT {scpi_number(v_pos)};"
+                        f":INST:NSEL 2;:VOLT {scpi_number(v_neg)}")
+
+    def rails(self) -> tuple[float, float]:
+        """Programmed (V+, V-)."""
+        return (self.link.query_float("INST:NSEL 1;:VOLT?"),
+                self.link.query_float("INST:NSEL 2;:VOLT?"))
+
+    def outputs(self, on: bool) -> None:
+        state = "ON" if on else "OFF"
+        self.link.write(f"INST:NSEL 1;:OUTP {state};:INST:NSEL 2;:OUTP {state}")
+
+    def outputs_state(self) -> tuple[bool, bool]:
+        return (self.link.query_bool("INST:NSEL 1;:OUTP?"),
+                self.link.query_bool("INST:NSEL 2;:OUTP?"))
+
+    def measure_current(self, rail: Rail) -> float:
+        """Output current in A (V+ sources, positive; V- sinks, negative)."""
+        return self.link.query_float(f"INST:NSEL {_channel(self.role, rail)};:MEAS:CURR?")
+
+    def measure_voltage(self, rail: Rail) -> float:
+        return self.link.query_float(f"INST:NSEL {_channel(self.role, rail)};:MEAS:VOLT?")
+
+    def ramp_down_and_off(self, steps: int = 5, step_delay_s: float = 0.02) -> None:
+        """Bring both rails to 0 V in `steps` steps, then turn both outputs off.
+
+        Every step is tried even if an earlier one fails (a lost reading must not leave the
+        rails up); the first failure is raised at the end.
+        """
+        failures: list[Exception] = []
+        try:
+            start = self.rails()
+        except InstrumentError as exc:
+            failures.append(exc)
+            start = (0.0, 0.0)          # unknown levels: go straight to zero
+        for step in range(1, max(1, steps)):
+            fraction = 1.0 - step / max(1, steps)
+            try:
+                self.set_rails(start[0] * fraction, start[1] * fraction)
+            except RequestRefused:
+                pass                    # levels set outside our limits: skip to the next step
+            except InstrumentError as exc:
+                failures.append(exc)
+            time.sleep(step_delay_s)
+        for action in (lambda: self.set_rails(0.0, 0.0), lambda: self.outputs(False),
+                       self._confirm_off):
+            try:
+                action()
+            except InstrumentError as exc:
+                failures.append(exc)
+        if failures:
+            raise failures[0]
+
+    def _confirm_off(self) -> None:
+        # A query proves the instrument received the writes before it.
+        if any(self.outputs_state()):
+            raise InstrumentError(self.role, self.link.resource, "OUTP?",
+                                  "still reports an output on after OUTP OFF")
+
+
+def _channel(role: str, rail: str) -> int:
+    if rail not in _CHANNEL:
+        raise RequestRefused(role, "rail", rail, "'V+' or 'V-'")
+    return _CHANNEL[rail]

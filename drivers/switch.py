@@ -1,0 +1,79 @@
+"""The fixture relays: site power (10x), scanner to the first DMM (20x), output load (30x)."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+from drivers.errors import InstrumentBadReply, InstrumentError, RequestRefused
+from drivers.limits import require_site
+from drivers.scpi_link import ScpiLink
+
+MAX_SITES = 4
+POWER, SCANNER, LOAD = 100, 200, 300
+
+
+def channel_list(channels: Iterable[int]) -> str:
+    return "(@" + ",".join(str(c) for c in sorted(channels)) + ")"
+
+
+class FixtureSwitch:
+    def __init__(self, link: ScpiLink, sites: int) -> None:
+        if not 1 <= sites <= MAX_SITES:
+            raise RequestRefused(link.role, "sites", sites, f"1 to {MAX_SITES}")
+        self.link = link
+        self.sites = sites
+
+    @property
+    def role(self) -> str:
+        return self.link.role
+
+    def _site(self, site: int) -> int:
+        return require_site(self.role, site, self.sites)
+
+    def power_sites(self, sites: set[int]) -> None:
+        """Close the power relays of `sites` and open the others, in one message."""
+        wanted = {self._site(s) for s in sites}
+        others = set(range(1, self.sites + 1)) - wanted
+        parts = []
+        # Open first, so no site is ever powered that should not be; kept sites never blink.
+        if others:
+            parts.append(f"ROUT:OPEN {channel_list(POWER + s for s in others)}")
+        if wanted:
+            parts.append(f"ROUT:CLOS {channel_list(POWER + s for s in wanted)}")
+        self.link.write(";:".join(parts))
+
+    def route_to_dmm(self, site: int | None) -> None:
+        """Connect one site's loop node to the first DMM (None: disconnect the scanner)."""
+        every = channel_list(SCANNER + s for s in range(1, self.sites + 1))
+        if site is None:
+            self.link.write(f"ROUT:OPEN {every}")
+            return
+        # Only one scanner relay may be closed: open them all before closing the new one.
+        self.link.write(f"ROUT:OPEN {every};:ROUT:CLOS (@{SCANNER + self._site(site)})")
+
+    def set_load(self, site: int, on: bool) -> None:
+        verb = "CLOS" if on else "OPEN"
+        self.link.write(f"ROUT:{verb} (@{LOAD + self._site(site)})")
+
+    def open_all(self) -> None:
+        self.link.write("ROUT:OPEN:ALL")
+
+    def confirm_open(self) -> None:
+        """Raise if any relay still reads closed (used after open_all on the way out)."""
+        still = self.closed()
+        if still:
+            raise InstrumentError(self.role, self.link.resource, "ROUT:CLOS?",
+                                     f"relays {sorted(still)} still closed after ROUT:OPEN:ALL")
+
+    def closed(self) -> set[int]:
+        """Channel numbers (101.., 201.., 301..) of the fixture's relays that are closed."""
+        channels = [bank + s for bank in (POWER, SCANNER, LOAD) for s in range(1, self.sites + 1)]
+        command = f"ROUT:CLOS? {channel_list(channels)}"
+        states = self.link.query_bools(command)
+        if len(states) != len(channels):
+            raise InstrumentBadReply(self.role, self.link.resource, command,
+                                     f"returned {len(states)} states for {len(channels)} channels")
+        return {c for c, state in zip(channels, states, strict=True) if state}
+
+    def powered_sites(self) -> set[int]:
+        return {c - POWER for c in self.closed() if POWER < c < SCANNER}

@@ -1,0 +1,46 @@
+"""SCPI number formatting and reply parsing (no instrument needed)."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from drivers.errors import InstrumentTimeout, RequestRefused
+from drivers.scpi_values import parse_error_entry, parse_scpi_bool, parse_scpi_float, scpi_number
+
+
+def test_overload_is_infinite():
+    # SCPI-1999 overload value 9.9E37 (docs/bench-commands.md; SCPI standard, from memory).
+    assert parse_scpi_float("+9.90000000E+37") == math.inf
+    assert parse_scpi_float("-9.9E37") == -math.inf
+    assert parse_scpi_float("1.25E-6") == 1.25e-6
+
+
+@pytest.mark.parametrize("text", ["", "abc", "1.0V", "nan"])
+def test_non_numbers_are_refused(text):
+    with pytest.raises(ValueError):
+        parse_scpi_float(text)
+
+
+def test_number_formatting_keeps_microvolts():
+    assert float(scpi_number(9.999999)) == 9.999999
+    assert scpi_number(-0.0) == "0"
+    with pytest.raises(ValueError):
+        scpi_number(math.inf)
+
+
+def test_bools_and_error_entries():
+    assert parse_scpi_bool("1") and not parse_scpi_bool("OFF")
+    with pytest.raises(ValueError):
+        parse_scpi_bool("2")
+    # SCPI standard error text for -113 (docs/bench-commands.md).
+    assert parse_error_entry('-113,"Undefined header"') == (-113, "Undefined header")
+    assert parse_error_entry('0,"No error"') == (0, "No error")
+
+
+def test_error_messages_are_one_line():
+    error = InstrumentTimeout("dmm1", "TCPIP0::127.0.0.1::5025::SOCKET", "READ?", "timed out after 5.0 s")
+    assert str(error) == "dmm1 (TCPIP0::127.0.0.1::5025::SOCKET): 'READ?' timed out after 5.0 s"
+    refused = RequestRefused("supply", "V+", "20 V", "-12 V to 12 V", "bench safety limit")
+    assert str(refused) == "supply: refused V+ = 20 V: allowed -12 V to 12 V (bench safety limit)"

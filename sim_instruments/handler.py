@@ -1,0 +1,88 @@
+"""Simulated part handler: indexes the lot's parts into the fixture sites and sorts them.
+
+Parts come in lot order, one per site per index; each id is presented once. An index takes
+`index_s` model seconds, during which the sites are empty.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+
+from sim_instruments.instrument import Instrument
+from sim_instruments.model import BenchModel
+from sim_instruments.population import PartTruth
+from sim_instruments.scpi_errors import ScpiError
+from sim_instruments.scpi_params import Arguments, integer
+from sim_instruments.scpi_tree import CommandTree
+
+EMPTY_SITE = "-"
+END_OF_LOT = "END"
+
+
+class Handler(Instrument):
+    model_name = "SBH-40"
+
+    def __init__(self, model: BenchModel, parts: list[PartTruth], index_s: float, **kwargs) -> None:
+        self.model = model
+        self.parts = parts
+        self.index_s = index_s
+        self.next_part = 0
+        self.in_sites: list[PartTruth | None] = [None] * model.fixture.sites
+        self.bins: Counter[int] = Counter()
+        super().__init__(**kwargs)
+
+    @property
+    def sites(self) -> int:
+        return self.model.fixture.sites
+
+    def build(self, tree: CommandTree) -> None:
+        site = integer(1, self.sites)
+        tree.add("HANDler:SITes", query=lambda: str(self.sites))
+        tree.add("HANDler:NEXT", query=self._next)
+        tree.add("HANDler:BIN", self._bin, args=Arguments([site, integer(1, 99)]))
+        tree.add("HANDler:BIN:COUNt", query=lambda b: str(self.bins[b]),
+                 query_args=Arguments([integer(1, 99)]))
+        tree.add("HANDler:RESeat", self._reseat, args=Arguments([site]))
+        tree.add("HANDler:COUNt", query=lambda: str(len(self.parts) - self.next_part))
+
+    def _next(self) -> str:
+        unbinned = [p for p in self.in_sites if p is not None and p.binned_hard_bin is None]
+        if unbinned:
+            raise ScpiError(-221, f"{unbinned[0].part_id} has no bin yet")
+        if any(p is not None for p in self.in_sites):
+            self._seat_all([None] * self.sites)  # sort the previous index out of the sites
+        if self.next_part >= len(self.parts):
+            return END_OF_LOT
+        self.clock.sleep(self.index_s)
+        batch = self.parts[self.next_part:self.next_part + self.sites]
+        self.next_part += len(batch)
+        self._seat_all(batch + [None] * (self.sites - len(batch)))
+        return ",".join(p.part_id if p else EMPTY_SITE for p in self.in_sites)
+
+    def _seat_all(self, parts: list[PartTruth | None]) -> None:
+        with self.model.lock:
+            now = self.clock.now()
+            for k, part in enumerate(parts, start=1):
+                self.in_sites[k - 1] = part
+                self.model.seat(k, part, now, contact=part is not None and part.defect != "open")
+
+    def _bin(self, site: int, hard_bin: int) -> None:
+        part = self.in_sites[site - 1]
+        if part is None:
+            raise ScpiError(-221, f"site {site} is empty")
+        if part.binned_hard_bin is not None:
+            self.bins[part.binned_hard_bin] -= 1  # re-sorting before the next index
+        part.binned_hard_bin = hard_bin
+        self.bins[hard_bin] += 1
+
+    def _reseat(self, site: int) -> None:
+        part = self.in_sites[site - 1]
+        if part is None:
+            raise ScpiError(-221, f"site {site} is empty")
+        with self.model.lock:
+            was_contacted = self.model.contact[site - 1]
+            self.model.seat(site, None, self.clock.now(), contact=False)
+        self.clock.sleep(self.index_s / 2.0)
+        contact = was_contacted or (part.defect == "open" and part.reseat_fixes)
+        with self.model.lock:
+            self.model.seat(site, part, self.clock.now(), contact=contact)

@@ -1,0 +1,152 @@
+"""Seeded population of the fictional PX-401 op-amp (all figures invented for the demo).
+
+Every part draws from its own generator seeded with (seed, index), so part k of a lot is the
+same whatever the lot size; another seed gives another lot. Distributions follow the demo
+table in DESIGN.md section 7.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+NOMINAL_SPAN_V = 10.0
+DEFECT_KINDS = ("none", "open", "short", "outlier", "crossover")
+# Cumulative defect shares: 1 % open, 0.5 % short, 1 % offset outlier, 0.5 % bad crossover.
+_DEFECT_EDGES = ((0.010, "open"), (0.015, "short"), (0.025, "outlier"), (0.030, "crossover"))
+WIDTH_10_90_PER_SCALE = 2.0 * math.log(9.0)  # logistic: 10-90 % width = 2 ln 9 * scale
+
+
+@dataclass
+class PartTruth:
+    """True parameters of one simulated part. Offsets in V, slopes in V/V, times in s."""
+
+    part_id: str
+    index: int
+    defect: str
+    reseat_fixes: bool          # an open part that a HANDler:RESeat cures
+    vos_low_v: float            # offset of the low input pair at VCM = 0, nominal span, Vout = 0
+    cm_step_v: float            # offset step from the low to the high pair
+    cmrr_low_vv: float          # dVos/dVCM of the low pair (signed)
+    cmrr_high_vv: float         # dVos/dVCM of the high pair (signed)
+    crossover_below_vplus_v: float  # crossover centre, volts below the upper rail
+    crossover_width_v: float    # 10-90 % width of the hand-over
+    aol_vv: float               # open-loop gain, unloaded
+    psrr_vv: float              # dVos/dSpan (signed)
+    iq_a: float                 # quiescent current at 10 V span
+    noise_v_rthz: float         # white input noise density
+    flicker_v: float            # 1/f floor: RMS per reading, independent of integration time
+    tau_fast_s: float           # servo-loop settling time constant
+    tau_slow_s: float           # thermal tail time constant
+    thermal_v_per_v: float      # thermal tail amplitude, RTI volts per volt of rail/output step
+    short_ohm: float            # rail-to-rail resistance of a shorted part (inf otherwise)
+    binned_hard_bin: int | None = None
+    site: int | None = None
+
+    @property
+    def crossover_vcm_v(self) -> float:
+        """Crossover centre as VCM at the nominal 10 V span."""
+        return self.crossover_vcm(NOMINAL_SPAN_V)
+
+    def crossover_vcm(self, span_v: float) -> float:
+        return span_v / 2.0 - self.crossover_below_vplus_v
+
+    def iq(self, span_v: float) -> float:
+        """Quiescent current; rises 1 %/V of span above 10 V (invented)."""
+        return max(0.0, self.iq_a * (1.0 + 0.01 * (span_v - NOMINAL_SPAN_V)))
+
+
+def _db_rejection(slope: float) -> float:
+    return -20.0 * math.log10(abs(slope)) if slope else math.inf
+
+
+def truth_row(part: PartTruth) -> dict[str, object]:
+    """One row of sim_truth.csv."""
+    return {
+        "PART_ID": part.part_id,
+        "DEFECT": part.defect,
+        "RESEAT_FIXES": int(part.reseat_fixes),
+        "VOS_LOW_V": part.vos_low_v,
+        "CM_STEP_V": part.cm_step_v,
+        "CMRR_LOW_VV": part.cmrr_low_vv,
+        "CMRR_HIGH_VV": part.cmrr_high_vv,
+        "CMRR_LOW_DB": _db_rejection(part.cmrr_low_vv),
+        "CMRR_HIGH_DB": _db_rejection(part.cmrr_high_vv),
+        "CROSSOVER_VCM_V": part.crossover_vcm_v,
+        "CROSSOVER_WIDTH_V": part.crossover_width_v,
+        "AOL_VV": part.aol_vv,
+        "AOL_DB": 20.0 * math.log10(part.aol_vv),
+        "PSRR_VV": part.psrr_vv,
+        "PSRR_DB": _db_rejection(part.psrr_vv),
+        "IQ_A": part.iq_a,
+        "NOISE_V_RTHZ": part.noise_v_rthz,
+        "FLICKER_V": part.flicker_v,
+        "TAU_FAST_S": part.tau_fast_s,
+        "TAU_SLOW_S": part.tau_slow_s,
+        "THERMAL_V_PER_V": part.thermal_v_per_v,
+        "BINNED_HARD_BIN": "" if part.binned_hard_bin is None else part.binned_hard_bin,
+        "SITE": "" if part.site is None else part.site,
+    }
+
+
+TRUTH_COLUMNS = (
+    "PART_ID", "DEFECT", "RESEAT_FIXES", "VOS_LOW_V", "CM_STEP_V", "CMRR_LOW_VV", "CMRR_HIGH_VV",
+    "CMRR_LOW_DB", "CMRR_HIGH_DB", "CROSSOVER_VCM_V", "CROSSOVER_WIDTH_V", "AOL_VV", "AOL_DB",
+    "PSRR_VV", "PSRR_DB", "IQ_A", "NOISE_V_RTHZ", "FLICKER_V", "TAU_FAST_S", "TAU_SLOW_S",
+    "THERMAL_V_PER_V", "BINNED_HARD_BIN", "SITE",
+)
+
+
+def make_part(seed: int, index: int, defects: bool = True) -> PartTruth:
+    """Part number `index` (0-based) of the lot of `seed`; id D00001 for index 0."""
+    rng = np.random.default_rng([seed, index])
+    # Draw every parameter first, always in the same order, so switching defects on or off
+    # changes only the defective parts.
+    defect_draw = rng.random()
+    reseat_fixes = bool(rng.random() < 0.5)
+    vos_low = rng.normal(0.0, 15e-6)
+    step = rng.normal(0.0, 60e-6)
+    cmrr_low = rng.normal(0.0, 0.3e-6)
+    cmrr_high = rng.normal(0.0, 1.5e-6)
+    below_vplus = 1.3 + rng.normal(0.0, 0.05)
+    width = float(np.clip(rng.normal(0.20, 0.015), 0.16, 0.24))
+    aol = 3e6 * 10.0 ** (rng.normal(0.0, 2.0) / 20.0)
+    psrr = rng.normal(0.0, 0.3e-6)
+    iq = rng.normal(450e-6, 25e-6)
+    noise = 15e-9 * math.exp(rng.normal(0.0, 0.08))
+    flicker = 5e-9 * math.exp(rng.normal(0.0, 0.2))
+    tau_fast = rng.uniform(2e-3, 3e-3)
+    tau_slow = rng.uniform(25e-3, 40e-3)
+    thermal = 0.3e-6 * math.exp(rng.normal(0.0, 0.25)) * (1 if rng.random() < 0.5 else -1)
+    outlier_mag = rng.uniform(0.3e-3, 2e-3) * (1 if rng.random() < 0.5 else -1)
+    bad_step = rng.uniform(0.5e-3, 1.5e-3) * (1 if rng.random() < 0.5 else -1)
+    short_ohm = rng.uniform(150.0, 250.0)  # ~50 mA at 10 V
+
+    defect = "none"
+    if defects:
+        for edge, kind in _DEFECT_EDGES:
+            if defect_draw < edge:
+                defect = kind
+                break
+    part = PartTruth(
+        part_id=f"D{index + 1:05d}", index=index, defect=defect,
+        reseat_fixes=reseat_fixes if defect == "open" else False,
+        vos_low_v=vos_low, cm_step_v=step, cmrr_low_vv=cmrr_low, cmrr_high_vv=cmrr_high,
+        crossover_below_vplus_v=below_vplus, crossover_width_v=width, aol_vv=aol,
+        psrr_vv=psrr, iq_a=iq, noise_v_rthz=noise, flicker_v=flicker,
+        tau_fast_s=tau_fast, tau_slow_s=tau_slow, thermal_v_per_v=thermal,
+        short_ohm=math.inf)
+    # An open is a contact fault: the part keeps its own Iq, the fixture just cannot reach it.
+    if defect == "short":
+        part.short_ohm = short_ohm
+    elif defect == "outlier":
+        part.vos_low_v = outlier_mag
+    elif defect == "crossover":
+        part.cm_step_v = bad_step
+    return part
+
+
+def make_population(seed: int, count: int, defects: bool = True) -> list[PartTruth]:
+    return [make_part(seed, i, defects) for i in range(count)]

@@ -1,0 +1,62 @@
+"""Simulated fixture relay matrix: site power (10k), scanner (20k), output load (30k)."""
+
+from __future__ import annotations
+
+from sim_instruments.instrument import Instrument
+from sim_instruments.model import BenchModel
+from sim_instruments.scpi_errors import ScpiError
+from sim_instruments.scpi_params import Arguments, channel_list
+from sim_instruments.scpi_tree import CommandTree
+
+BANKS = (1, 2, 3)  # 1xx power, 2xx scanner, 3xx load
+SCANNER_BANK = 2
+
+
+class FixtureSwitch(Instrument):
+    model_name = "SBX-312"
+
+    def __init__(self, model: BenchModel, **kwargs) -> None:
+        self.model = model
+        super().__init__(**kwargs)
+
+    def reset(self) -> None:
+        with self.model.lock:
+            self.model.set_relays(set(), self.clock.now())
+
+    def build(self, tree: CommandTree) -> None:
+        channels = Arguments([channel_list])
+        tree.add("ROUTe:CLOSe", self._close, self._query_closed, args=channels, query_args=channels)
+        tree.add("ROUTe:OPEN", self._open, self._query_open, args=channels, query_args=channels)
+        tree.add("ROUTe:OPEN:ALL", self._open_all)
+
+    def _check(self, channels: tuple[int, ...]) -> None:
+        sites = self.model.fixture.sites
+        for channel in channels:
+            bank, site = divmod(channel, 100)
+            if bank not in BANKS or not 1 <= site <= sites:
+                raise ScpiError(-222, f"no relay {channel} on a {sites}-site fixture")
+
+    def _close(self, channels: tuple[int, ...]) -> None:
+        self._check(channels)
+        with self.model.lock:
+            closed = self.model.relays | set(channels)
+            if sum(1 for c in closed if c // 100 == SCANNER_BANK) > 1:
+                raise ScpiError(-221, "only one scanner relay may be closed")
+            self.model.set_relays(closed, self.clock.now())
+
+    def _open(self, channels: tuple[int, ...]) -> None:
+        self._check(channels)
+        with self.model.lock:
+            self.model.set_relays(self.model.relays - set(channels), self.clock.now())
+
+    def _open_all(self) -> None:
+        with self.model.lock:
+            self.model.set_relays(set(), self.clock.now())
+
+    def _query_closed(self, channels: tuple[int, ...]) -> str:
+        self._check(channels)
+        return ",".join("1" if c in self.model.relays else "0" for c in channels)
+
+    def _query_open(self, channels: tuple[int, ...]) -> str:
+        self._check(channels)
+        return ",".join("0" if c in self.model.relays else "1" for c in channels)

@@ -24,7 +24,7 @@ class ForceSource:
         limit = self.max_level_v
         volts = require_within(self.role, "force level", volts, -limit, limit, "V",
                                f"bench limit {limit:g} V, instrument +-{INSTRUMENT_MAX_V:g} V")
-        self.link.write(f"VOLT {scpi_number(volts)}")
+        self.link.write_and_wait(f"VOLT {scpi_number(volts)}")
 
     def level(self) -> float:
         """Programmed level in V."""
@@ -34,7 +34,7 @@ class ForceSource:
         return self.link.query_float("MEAS:VOLT?")
 
     def output(self, on: bool) -> None:
-        self.link.write(f"OUTP {'ON' if on else 'OFF'}")
+        self.link.write_and_wait(f"OUTP {'ON' if on else 'OFF'}")
 
     def output_state(self) -> bool:
         return self.link.query_bool("OUTP?")

@@ -75,10 +75,11 @@ class ScpiHandler:
 
     def assign_bin(self, site: int, hard_bin: int, label: str = "") -> None:
         site = require_site(self.role, site, self.sites())
-        self.link.write(f"HAND:BIN {site},{_require_bin(self.role, hard_bin)}")
+        self.link.write_and_wait(f"HAND:BIN {site},{_require_bin(self.role, hard_bin)}")
 
     def reseat(self, site: int) -> None:
-        self.link.write(f"HAND:RES {require_site(self.role, site, self.sites())}")
+        # Wait for the re-seat to finish (*OPC?): measuring while the part is lifted reads an open.
+        self.link.query(f"HAND:RES {require_site(self.role, site, self.sites())};*OPC?")
 
     def remaining(self) -> int:
         """Parts not yet presented."""

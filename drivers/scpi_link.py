@@ -138,6 +138,18 @@ class ScpiLink:
                 self.transactions += 1
             self._last_command = command
 
+    def write_and_wait(self, command: str) -> None:
+        """Send a setting and wait until the instrument has applied it (``*OPC?``).
+
+        A plain write returns as soon as the bytes are sent; the next transaction on another
+        instrument could then run before this one takes effect (a relay not yet closed, a rail
+        not yet moved). Every setting the sequence depends on goes through here.
+        """
+        reply = self.query(f"{command};*OPC?")
+        if reply.strip() != "1":
+            raise InstrumentBadReply(self.role, self.resource, f"{command};*OPC?",
+                                     f"returned {_shorten(reply)!r} where '1' was expected")
+
     def query(self, command: str, timeout_s: float | None = None) -> str:
         """Send a query and return its reply without the terminator."""
         wait = self._timeout_s if timeout_s is None else float(timeout_s)

@@ -43,7 +43,7 @@ class DualRailSupply:
         amps = require_within(self.role, "current compliance", amps, INSTRUMENT_MIN_A, high, "A",
                               "bench safety compliance and instrument range")
         value = scpi_number(amps)
-        self.link.write(f"INST:NSEL 1;:CURR {value};:INST:NSEL 2;:CURR {value}")
+        self.link.write_and_wait(f"INST:NSEL 1;:CURR {value};:INST:NSEL 2;:CURR {value}")
 
     def set_rails(self, v_pos: float, v_neg: float) -> None:
         """Program V+ and V- together; refused beyond max_rail, the instrument, or V+ < V-."""
@@ -54,7 +54,7 @@ class DualRailSupply:
         if v_pos < v_neg:
             raise RequestRefused(self.role, "rails", f"V+ {v_pos:g} V, V- {v_neg:g} V",
                                  "V+ >= V-", "the rails would be reversed")
-        self.link.write(f"INST:NSEL 1;:VOLT {scpi_number(v_pos)};"
+        self.link.write_and_wait(f"INST:NSEL 1;:VOLT {scpi_number(v_pos)};"
                         f":INST:NSEL 2;:VOLT {scpi_number(v_neg)}")
 
     def rails(self) -> tuple[float, float]:
@@ -64,7 +64,7 @@ class DualRailSupply:
 
     def outputs(self, on: bool) -> None:
         state = "ON" if on else "OFF"
-        self.link.write(f"INST:NSEL 1;:OUTP {state};:INST:NSEL 2;:OUTP {state}")
+        self.link.write_and_wait(f"INST:NSEL 1;:OUTP {state};:INST:NSEL 2;:OUTP {state}")
 
     def outputs_state(self) -> tuple[bool, bool]:
         return (self.link.query_bool("INST:NSEL 1;:OUTP?"),

@@ -40,23 +40,23 @@ class FixtureSwitch:
             parts.append(f"ROUT:OPEN {channel_list(POWER + s for s in others)}")
         if wanted:
             parts.append(f"ROUT:CLOS {channel_list(POWER + s for s in wanted)}")
-        self.link.write(";:".join(parts))
+        self.link.write_and_wait(";:".join(parts))
 
     def route_to_dmm(self, site: int | None) -> None:
         """Connect one site's loop node to the first DMM (None: disconnect the scanner)."""
         every = channel_list(SCANNER + s for s in range(1, self.sites + 1))
         if site is None:
-            self.link.write(f"ROUT:OPEN {every}")
+            self.link.write_and_wait(f"ROUT:OPEN {every}")
             return
         # Only one scanner relay may be closed: open them all before closing the new one.
-        self.link.write(f"ROUT:OPEN {every};:ROUT:CLOS (@{SCANNER + self._site(site)})")
+        self.link.write_and_wait(f"ROUT:OPEN {every};:ROUT:CLOS (@{SCANNER + self._site(site)})")
 
     def set_load(self, site: int, on: bool) -> None:
         verb = "CLOS" if on else "OPEN"
-        self.link.write(f"ROUT:{verb} (@{LOAD + self._site(site)})")
+        self.link.write_and_wait(f"ROUT:{verb} (@{LOAD + self._site(site)})")
 
     def open_all(self) -> None:
-        self.link.write("ROUT:OPEN:ALL")
+        self.link.write_and_wait("ROUT:OPEN:ALL")
 
     def confirm_open(self) -> None:
         """Raise if any relay still reads closed (used after open_all on the way out)."""

@@ -44,6 +44,12 @@ class SimSettings:
     handler_index_s: float = 0.2  # model seconds per HANDler:NEXT? index
     defects: bool = True      # include gross defects in the population
     log_commands: bool = False
+    # For the overhead benchmark: no settling transients and no integration wait (readings
+    # are instant and exact but for noise). Implemented in the model and the DMM.
+    ideal: bool = False
+    # For resuming a lot: the handler starts after the first `skip_parts` parts of the lot,
+    # as a real handler would after those were sorted in an earlier session.
+    skip_parts: int = 0
 
 
 class SimBench:

@@ -209,10 +209,12 @@ def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth
 
 
 def _register_datalog_tools() -> None:
+    """Commands that read datalogs only: convert and verify, summary, rebin, limits."""
     from station.cli_datalog import convert_command, verify_command
+    from station.cli_review import limits_group, rebin_command, summary_command
 
-    main.add_command(convert_command)
-    main.add_command(verify_command)
+    for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
+        main.add_command(command)
 
 
 _register_datalog_tools()

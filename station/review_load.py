@@ -1,0 +1,208 @@
+"""Read datalog folders (docs/datalog-format.md) into pandas, for the review tools.
+
+The datalog is the only thing the review tools read. A folder that is not a datalog is
+refused with one line that says what is missing. Several folders load into one pair of
+tables with a DATALOG column (the folder's index) so that a shift of lots summarises at once.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+DATALOG_FORMAT = "ampscreen-datalog/1"
+
+# Explicit dtypes: no type sniffing (slow, and a numeric-looking PART_ID must stay text).
+RESULT_DTYPES: dict[str, object] = {
+    "LOT_ID": "category", "PART_ID": "str", "HEAD_NUM": "int16", "SITE_NUM": "int16",
+    "TEST_NUM": "int32", "TEST_TXT": "category", "PARAM": "category", "REGION": "category",
+    "VCM": "float64", "COND": "float64", "RESULT": "float64", "UNITS": "category",
+    "LO_LIMIT": "float64", "HI_LIMIT": "float64", "PASS": "float64", "GRADE": "category",
+}
+PART_DTYPES: dict[str, object] = {
+    "LOT_ID": "str", "PART_ID": "str", "HEAD_NUM": "int16", "SITE_NUM": "int16",
+    "HARD_BIN": "int32", "SOFT_BIN": "int32", "GRADE": "str", "PASS": "float64",
+    "TEST_T": "float64", "RETEST": "int8", "FAIL_TEST": "float64", "FAULT": "str",
+    "END_T": "float64",
+}
+# Only these columns may be empty and mean "none"; text columns keep "" as "".
+_RESULT_EMPTY = {c: [""] for c in ("VCM", "COND", "LO_LIMIT", "HI_LIMIT", "PASS")}
+_PART_EMPTY = {c: [""] for c in ("PASS", "FAIL_TEST", "TEST_T", "END_T")}
+
+# Raw sweep points (not computed figures); summaries leave them out.
+RAW_PARAMS = frozenset({"vos_cm", "vos_force", "vos_span"})
+
+
+class DatalogError(Exception):
+    """A folder is not a readable datalog; the message is one line naming folder and problem."""
+
+
+@dataclass
+class Datalogs:
+    """One or more datalog folders read into two tables.
+
+    `parts`: parts.csv rows plus DATALOG (folder index) and PART_SEQ (unique row number).
+    `results`: results.csv rows plus DATALOG and PART_SEQ (the part row they belong to).
+    """
+
+    folders: list[Path]
+    lots: list[dict]
+    parts: pd.DataFrame
+    results: pd.DataFrame
+    limits_files: list[Path | None]
+    warnings: list[str] = field(default_factory=list)
+
+    def bin_names(self, kind: str) -> dict[int, str]:
+        """Bin number -> name from every lot.json (`kind` "hard_bins" or "soft_bins")."""
+        names: dict[int, str] = {}
+        for lot in self.lots:
+            for number, info in (lot.get(kind) or {}).items():
+                names.setdefault(int(number), str(info.get("name", "")))
+        return names
+
+    def bin_passing(self, kind: str) -> dict[int, bool]:
+        flags: dict[int, bool] = {}
+        for lot in self.lots:
+            for number, info in (lot.get(kind) or {}).items():
+                flags.setdefault(int(number), bool(info.get("pass", False)))
+        return flags
+
+
+def load_datalogs(folders: Sequence[str | Path],
+                  progress: Callable[[Path], None] | None = None) -> Datalogs:
+    """Read every folder (in order); `progress` is called after each one."""
+    if not folders:
+        raise DatalogError("no datalog folder given")
+    lots, parts_list, results_list, limits, warnings = [], [], [], [], []
+    offset = 0
+    for index, folder in enumerate(Path(f) for f in folders):
+        lot, parts, results, notes = read_datalog_folder(folder)
+        parts.insert(0, "DATALOG", np.int32(index))
+        results.insert(0, "DATALOG", np.int32(index))
+        parts["PART_SEQ"] += offset
+        results["PART_SEQ"] += offset
+        offset += len(parts)
+        lots.append(lot)
+        parts_list.append(parts)
+        results_list.append(results)
+        limits_file = folder / str((lot.get("limits") or {}).get("file", "limits.yaml"))
+        limits.append(limits_file if limits_file.is_file() else None)
+        warnings.extend(f"{folder}: {note}" for note in notes)
+        if progress is not None:
+            progress(folder)
+    parts = pd.concat(parts_list, ignore_index=True) if len(parts_list) > 1 else parts_list[0]
+    results = _concat_results(results_list)
+    return Datalogs([Path(f) for f in folders], lots, parts, results, limits, warnings)
+
+
+def read_datalog_folder(folder: Path) -> tuple[dict, pd.DataFrame, pd.DataFrame, list[str]]:
+    """(lot header, parts, results, warnings) of one folder; DatalogError if it is not one."""
+    if not folder.is_dir():
+        raise DatalogError(f"{folder}: not a folder (give a datalog folder written with --out)")
+    missing = [name for name in ("lot.json", "parts.csv", "results.csv") if not (folder / name).is_file()]
+    if missing:
+        raise DatalogError(f"{folder}: not a datalog folder: {', '.join(missing)} missing "
+                           "(a datalog holds lot.json, parts.csv and results.csv)")
+    lot = _read_lot(folder / "lot.json")
+    parts = _read_csv(folder / "parts.csv", PART_DTYPES, _PART_EMPTY)
+    results = _read_csv(folder / "results.csv", RESULT_DTYPES, _RESULT_EMPTY)
+    notes = []
+    if not lot.get("complete", False):
+        notes.append("lot.json says the lot is not complete (still running, or it stopped early)")
+    parts = parts.reset_index(drop=True)
+    parts["PART_SEQ"] = np.arange(len(parts), dtype=np.int64)
+    results["PART_SEQ"] = match_results_to_parts(results, parts)
+    orphans = int((results["PART_SEQ"] < 0).sum())
+    if orphans:
+        notes.append(f"{orphans} result rows belong to no row of parts.csv; left out")
+        results = results[results["PART_SEQ"] >= 0].reset_index(drop=True)
+    return lot, parts, results, notes
+
+
+def match_results_to_parts(results: pd.DataFrame, parts: pd.DataFrame) -> np.ndarray:
+    """PART_SEQ of each result row (-1 where no part row matches).
+
+    results.csv has no part number of its own: a part's rows are written together at its end,
+    in the same order as parts.csv. So the k-th block of rows of part id P is the k-th parts.csv
+    row of P that has results (tester faults have none). A block starts where the lot, part or
+    site changes. Where parts.csv holds more tests of P than that finds (P retested on the same
+    site right after itself), a repeated test number starts the next block too.
+    """
+    if results.empty:
+        return np.zeros(0, dtype=np.int64)
+    lot = results["LOT_ID"].astype(str).to_numpy()
+    part = results["PART_ID"].to_numpy()
+    site = results["SITE_NUM"].to_numpy()
+    change = np.ones(len(results), dtype=bool)
+    change[1:] = (lot[1:] != lot[:-1]) | (part[1:] != part[:-1]) | (site[1:] != site[:-1])
+    block = np.cumsum(change)
+    with_results = parts[parts["PASS"].notna()]
+    wanted = with_results.groupby(["LOT_ID", "PART_ID"], sort=False).size()
+    found = pd.DataFrame({"lot": lot[change], "part": part[change]}).groupby(["lot", "part"], sort=False).size()
+    have = found.reindex(wanted.index, fill_value=0)
+    split_keys = set(wanted.index[have.to_numpy() < wanted.to_numpy()])
+    if split_keys:
+        rows = np.fromiter(((a, b) in split_keys for a, b in zip(lot, part, strict=True)), bool, len(lot))
+        repeat = pd.Series(results["TEST_NUM"].to_numpy()).where(rows, 0)
+        occurrence = repeat.groupby([block, repeat.to_numpy()], sort=False).cumcount().to_numpy()
+        block = block * 1_000 + np.where(rows, occurrence, 0)
+    block_code = pd.factorize(block)[0]
+    first = ~pd.Series(block_code).duplicated().to_numpy()
+    blocks = pd.DataFrame({"lot": lot[first], "part": part[first], "code": block_code[first]})
+    blocks["occ"] = blocks.groupby(["lot", "part"], sort=False).cumcount()
+    targets = pd.DataFrame({"lot": with_results["LOT_ID"].to_numpy(), "part": with_results["PART_ID"].to_numpy(),
+                            "seq": with_results["PART_SEQ"].to_numpy()})
+    targets["occ"] = targets.groupby(["lot", "part"], sort=False).cumcount()
+    matched = blocks.merge(targets, on=["lot", "part", "occ"], how="left")
+    seq_of_code = np.full(block_code.max() + 1, -1, dtype=np.int64)
+    seq_of_code[matched["code"].to_numpy()] = matched["seq"].fillna(-1).astype(np.int64).to_numpy()
+    return seq_of_code[block_code]
+
+
+def _read_lot(path: Path) -> dict:
+    try:
+        lot = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise DatalogError(f"{path}: cannot read the lot header: {exc}") from None
+    if not isinstance(lot, dict) or lot.get("format") != DATALOG_FORMAT:
+        found = lot.get("format") if isinstance(lot, dict) else None
+        raise DatalogError(f"{path}: not a datalog header (format {found!r}, expected {DATALOG_FORMAT!r})")
+    return lot
+
+
+def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]) -> pd.DataFrame:
+    try:
+        header = pd.read_csv(path, nrows=0).columns
+    except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise DatalogError(f"{path}: cannot read: {exc}") from None
+    missing = [c for c in dtypes if c not in header]
+    if missing:
+        raise DatalogError(f"{path}: columns missing: {', '.join(missing)} (see docs/datalog-format.md)")
+    try:
+        frame = pd.read_csv(path, dtype=dtypes, keep_default_na=False, na_values=empty,  # type: ignore[arg-type]
+                            engine="c", low_memory=False)
+    except (ValueError, pd.errors.ParserError) as exc:
+        raise DatalogError(f"{path}: a value does not fit its column: {str(exc).splitlines()[0]}") from None
+    return frame
+
+
+def _concat_results(frames: list[pd.DataFrame]) -> pd.DataFrame:
+    if len(frames) == 1:
+        return frames[0]
+    # Categories differ per file; union them so concat keeps the compact dtype.
+    for column, dtype in RESULT_DTYPES.items():
+        if dtype == "category":
+            union = pd.api.types.union_categoricals([f[column] for f in frames]).categories
+            for f in frames:
+                f[column] = f[column].cat.set_categories(union)
+    return pd.concat(frames, ignore_index=True)
+
+
+def computed_rows(results: pd.DataFrame) -> pd.DataFrame:
+    """Result rows that are computed figures (raw sweep points left out)."""
+    return results[~results["PARAM"].isin(RAW_PARAMS)]

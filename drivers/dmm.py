@@ -11,6 +11,7 @@ import math
 
 from drivers.errors import RequestRefused
 from drivers.limits import require_within
+from drivers.retry import RETRYABLE
 from drivers.scpi_link import ScpiLink
 from drivers.scpi_values import scpi_number
 
@@ -45,9 +46,10 @@ class LoopDmm:
             raise RequestRefused(self.role, "sample count", samples, f"1 to {SAMPLES_MAX}")
         range_part = (f":CONF:VOLT:DC {scpi_number(range_v)}" if range_v is not None
                       else ":CONF:VOLT:DC;:VOLT:DC:RANG:AUTO ON")
-        self.link.write(f"SYST:LFR {int(self.line_hz)};{range_part};"
-                        f":VOLT:DC:NPLC {scpi_number(nplc)};"
-                        f":ZERO:AUTO {'ON' if autozero else 'OFF'};:SAMP:COUN {samples}")
+        # One message with its *OPC?: a failure re-sends the whole configuration.
+        self.link.write_and_wait(f"SYST:LFR {int(self.line_hz)};{range_part};"
+                                 f":VOLT:DC:NPLC {scpi_number(nplc)};"
+                                 f":ZERO:AUTO {'ON' if autozero else 'OFF'};:SAMP:COUN {samples}")
         self.nplc, self.range_v, self.autozero, self.samples = nplc, range_v, autozero, samples
         self.link.check_errors()
 
@@ -69,8 +71,17 @@ class LoopDmm:
         self.link.write("INIT")
 
     def fetch(self) -> list[float]:
-        """The readings of the last start(), waiting for the integration to finish."""
-        return self.link.query_floats("FETC?", timeout_s=self._wait_s())
+        """The readings of the last start(), waiting for the integration to finish.
+
+        If the fetch fails (timeout, garbage, dropped link), the readings are taken again with
+        READ? at the same condition rather than fetched again: after a reconnect, the INIT may
+        not have been received, and a FETCh? would return the readings of an earlier one.
+        """
+        try:
+            return self.link.query_floats("FETC?", timeout_s=self._wait_s(), retry=False)
+        except RETRYABLE:
+            self.link.retries += 1
+            return self.read_samples()
 
     def _wait_s(self) -> float:
         return self.link.timeout_s + self.integration_time_s

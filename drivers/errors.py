@@ -38,6 +38,10 @@ class InstrumentConnectionLost(InstrumentError):
     """The connection was closed or reset; `ScpiLink.reconnect()` may recover it."""
 
 
+class InstrumentNotSent(InstrumentConnectionLost):
+    """The link was found closed before the message went out: the instrument never saw it."""
+
+
 class InstrumentBadReply(InstrumentError):
     """A reply came back, but it is garbled or not what the command returns."""
 

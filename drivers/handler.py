@@ -6,15 +6,19 @@ to do it. The sequencer sees only the `PartHandler` protocol.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from typing import Protocol, runtime_checkable
 
-from drivers.errors import InstrumentBadReply, RequestRefused
+from drivers.errors import InstrumentBadReply, InstrumentError, RequestRefused
 from drivers.limits import require_site
+from drivers.retry import RETRYABLE
 from drivers.scpi_link import ScpiLink
 
 MIN_BIN, MAX_BIN = 1, 99
 EMPTY_SITE = "-"
+# What a handler's part id may look like: a garbled reply must not pass for an id.
+PART_ID = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.:/+-]{0,63}")
 
 
 @runtime_checkable
@@ -48,6 +52,7 @@ class ScpiHandler:
     def __init__(self, link: ScpiLink) -> None:
         self.link = link
         self._sites: int | None = None
+        self._last: list[str | None] | None = None   # the index NEXT? gave last
 
     @property
     def role(self) -> str:
@@ -63,14 +68,46 @@ class ScpiHandler:
         return self._sites
 
     def next_index(self) -> list[str | None] | None:
-        reply = self.link.query("HAND:NEXT?")
+        """HAND:NEXT? moves parts, so it is never simply sent again after a failure: the
+        handler is asked what it has seated (HAND:IND?) and the index is taken from that."""
+        try:
+            return self._parse(self.link.query("HAND:NEXT?", retry=False), "HAND:NEXT?")
+        except RETRYABLE as exc:
+            return self._recover_next(exc)
+
+    def seated(self) -> list[str | None]:
+        """The ids seated now, without moving anything (HAND:IND?)."""
+        ids = self._parse(self.link.query("HAND:IND?"), "HAND:IND?")
+        return ids if ids is not None else [None] * self.sites()
+
+    def _recover_next(self, first: InstrumentError) -> list[str | None] | None:
+        # The failed NEXT? may have queued an error (-221, parts not yet binned): ours, cleared.
+        self.link.write_and_wait("*CLS")
+        seated = self.seated()
+        if any(seated) and seated != self._last:
+            self._last = seated
+            return seated                      # the NEXT? was done: these are the new parts
+        if not any(seated) and self.remaining() == 0:
+            self._last = None
+            return None                        # the NEXT? was done and ended the lot
+        try:                                   # the NEXT? never arrived: send it once more
+            return self._parse(self.link.query("HAND:NEXT?", retry=False), "HAND:NEXT?")
+        except InstrumentError as again:
+            raise InstrumentBadReply(self.role, self.link.resource, "HAND:NEXT?",
+                                     f"failed twice ({first.detail}; then {again.detail})") from again
+
+    def _parse(self, reply: str, command: str) -> list[str | None] | None:
         if reply.strip().upper() == "END":
+            self._last = None
             return None
         ids: list[str | None] = [None if part.strip() == EMPTY_SITE else part.strip()
                                  for part in reply.split(",")]
-        if len(ids) != self.sites() or any(part == "" for part in ids):
-            raise InstrumentBadReply(self.role, self.link.resource, "HAND:NEXT?",
-                                     f"returned {reply!r}: expected {self.sites()} part ids")
+        if len(ids) != self.sites() or any(p is not None and not PART_ID.fullmatch(p) for p in ids):
+            raise InstrumentBadReply(self.role, self.link.resource, command,
+                                     f"returned {reply!r}: expected {self.sites()} part ids "
+                                     f"(letters, digits, _ . : / + -) or {EMPTY_SITE!r} for an empty site")
+        if command == "HAND:NEXT?":
+            self._last = ids
         return ids
 
     def assign_bin(self, site: int, hard_bin: int, label: str = "") -> None:

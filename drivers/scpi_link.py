@@ -2,6 +2,8 @@
 
 The link turns pyvisa's and the socket's failures into the exceptions of `drivers.errors`,
 each naming the role, the resource and the command, so a driver never sees a VisaIOError.
+Queries and settings go through the retry policy of `drivers.retry` (a query with
+`retry=False` is sent once: its resend would not be harmless).
 """
 
 from __future__ import annotations
@@ -10,9 +12,9 @@ import math
 import select
 import socket
 import threading
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from typing import Any
+from typing import Any, TypeVar
 
 import pyvisa
 from pyvisa import constants
@@ -21,14 +23,18 @@ from drivers.errors import (
     InstrumentBadReply,
     InstrumentConnectionLost,
     InstrumentError,
+    InstrumentNotSent,
     InstrumentOpenError,
     InstrumentReportedError,
     InstrumentTimeout,
 )
+from drivers.retry import DEFAULT_RETRY, RETRYABLE, RetryPolicy
 from drivers.scpi_values import parse_error_entry, parse_scpi_bool, parse_scpi_float
 
 # More than the SCPI queue depth (16) plus its overflow entry: a queue that never empties is broken.
 _MAX_ERROR_READS = 20
+
+T = TypeVar("T")
 
 _CONNECTION_CODES = {
     constants.StatusCode.error_connection_lost,
@@ -42,12 +48,15 @@ class ScpiLink:
     """A VISA resource opened for SCPI text messages, with errors mapped to our exceptions."""
 
     def __init__(self, role: str, resource: str, visa_library: str = "@py",
-                 timeout_s: float = 5.0) -> None:
+                 timeout_s: float = 5.0, retry: RetryPolicy = DEFAULT_RETRY) -> None:
         self.role = role
         self.resource = resource
         self.visa_library = visa_library
         self._timeout_s = float(timeout_s)
         self.transactions = 0          # messages sent (writes and queries)
+        self.retry = retry
+        self.retries = 0               # transactions sent again after a failure
+        self.reconnects = 0
         self._manager: Any = None
         self._instrument: Any = None
         self._last_command: str | None = None
@@ -94,6 +103,7 @@ class ScpiLink:
         upper = self.resource.upper()
         if upper.endswith("::SOCKET") or upper.startswith("ASRL"):
             instrument.read_termination = "\n"
+        _disable_send_delay(instrument)
         self._instrument = instrument
         self._stale = False
 
@@ -110,6 +120,7 @@ class ScpiLink:
     def reconnect(self) -> None:
         """Close and open again, e.g. after a dropped connection or a timeout."""
         self.close()
+        self.reconnects += 1
         self.open()
 
     def _close_manager(self) -> None:
@@ -126,13 +137,19 @@ class ScpiLink:
 
     # -- transactions ----------------------------------------------------------------
 
-    def write(self, command: str) -> None:
+    def write(self, command: str, retry: bool = True) -> None:
+        """Send a message without a reply (settings are absolute, so a resend is harmless)."""
+        self._with_retry(lambda: self._write_once(command), retry)
+
+    def _write_once(self, command: str) -> None:
         with self._lock:
             instrument = self._prepare(command)
             try:
                 instrument.write(command)
-            except Exception as exc:
+            except BaseException as exc:
                 self._stale = True
+                if not isinstance(exc, Exception):
+                    raise               # Ctrl-C, SIGTERM: not an instrument failure
                 raise self._translate(exc, command, self._timeout_s) from exc
             finally:
                 self.transactions += 1
@@ -143,15 +160,79 @@ class ScpiLink:
 
         A plain write returns as soon as the bytes are sent; the next transaction on another
         instrument could then run before this one takes effect (a relay not yet closed, a rail
-        not yet moved). Every setting the sequence depends on goes through here.
+        not yet moved). Every setting the sequence depends on goes through here. A failure
+        sends the setting again as a whole, with its ``*OPC?``.
         """
-        reply = self.query(f"{command};*OPC?")
-        if reply.strip() != "1":
-            raise InstrumentBadReply(self.role, self.resource, f"{command};*OPC?",
-                                     f"returned {_shorten(reply)!r} where '1' was expected")
+        full = f"{command};*OPC?"
 
-    def query(self, command: str, timeout_s: float | None = None) -> str:
+        def check(reply: str) -> None:
+            if reply.strip() != "1":
+                raise InstrumentBadReply(self.role, self.resource, full,
+                                         f"returned {_shorten(reply)!r} where '1' was expected")
+
+        self._ask(full, None, check, True)
+
+    def query(self, command: str, timeout_s: float | None = None, retry: bool = True) -> str:
         """Send a query and return its reply without the terminator."""
+        return self._ask(command, timeout_s, lambda reply: reply, retry)
+
+    def query_float(self, command: str, timeout_s: float | None = None, retry: bool = True) -> float:
+        """A numeric reply; SCPI overload (9.9E37) becomes +-inf."""
+        def one(reply: str) -> float:
+            values = self._floats(command, reply)
+            if len(values) != 1:
+                raise InstrumentBadReply(self.role, self.resource, command,
+                                         f"returned {len(values)} values where one was expected")
+            return values[0]
+
+        return self._ask(command, timeout_s, one, retry)
+
+    def query_floats(self, command: str, timeout_s: float | None = None, retry: bool = True) -> list[float]:
+        """A comma-separated numeric reply."""
+        return self._ask(command, timeout_s, lambda reply: self._floats(command, reply), retry)
+
+    def query_bools(self, command: str, timeout_s: float | None = None, retry: bool = True) -> list[bool]:
+        """A comma-separated boolean reply (1/0, ON/OFF)."""
+        return self._ask(command, timeout_s, lambda reply: self._bools(command, reply), retry)
+
+    def query_bool(self, command: str, timeout_s: float | None = None, retry: bool = True) -> bool:
+        def one(reply: str) -> bool:
+            values = self._bools(command, reply)
+            if len(values) != 1:
+                raise InstrumentBadReply(self.role, self.resource, command,
+                                         f"returned {len(values)} values where one was expected")
+            return values[0]
+
+        return self._ask(command, timeout_s, one, retry)
+
+    def _floats(self, command: str, reply: str) -> list[float]:
+        try:
+            return [parse_scpi_float(part) for part in reply.split(",")]
+        except ValueError:
+            raise InstrumentBadReply(self.role, self.resource, command,
+                                     f"returned {_shorten(reply)!r}, not a number") from None
+
+    def _bools(self, command: str, reply: str) -> list[bool]:
+        try:
+            return [parse_scpi_bool(part) for part in reply.split(",")]
+        except ValueError:
+            raise InstrumentBadReply(self.role, self.resource, command,
+                                     f"returned {_shorten(reply)!r}, not 1/0 values") from None
+
+    def _ask(self, command: str, timeout_s: float | None, parse: Callable[[str], T], retry: bool) -> T:
+        """One query and the parsing of its reply, retried together: a garbled reply is resent."""
+        return self._with_retry(lambda: parse(self._query_once(command, timeout_s)), retry)
+
+    def _with_retry(self, action: Callable[[], T], retry: bool) -> T:
+        if not retry:
+            return action()
+
+        def count(exc: InstrumentError, attempt: int) -> None:
+            self.retries += 1
+
+        return self.retry.run(self, action, on_retry=count)
+
+    def _query_once(self, command: str, timeout_s: float | None) -> str:
         wait = self._timeout_s if timeout_s is None else float(timeout_s)
         with self._lock:
             instrument = self._prepare(command)
@@ -159,53 +240,25 @@ class ScpiLink:
                 with self._timeout(instrument, wait):
                     instrument.write(command)
                     reply = instrument.read()
-            except Exception as exc:
+            except BaseException as exc:
+                # A reply may still arrive: the next transaction must not take it for its own.
                 self._stale = True
+                if not isinstance(exc, Exception):
+                    raise               # Ctrl-C, SIGTERM: not an instrument failure
                 raise self._translate(exc, command, wait) from exc
             finally:
                 self.transactions += 1
             self._last_command = command
         return reply.strip()
 
-    def query_float(self, command: str, timeout_s: float | None = None) -> float:
-        """A numeric reply; SCPI overload (9.9E37) becomes +-inf."""
-        values = self.query_floats(command, timeout_s)
-        if len(values) != 1:
-            raise InstrumentBadReply(self.role, self.resource, command,
-                                     f"returned {len(values)} values where one was expected")
-        return values[0]
-
-    def query_floats(self, command: str, timeout_s: float | None = None) -> list[float]:
-        """A comma-separated numeric reply."""
-        reply = self.query(command, timeout_s)
-        try:
-            return [parse_scpi_float(part) for part in reply.split(",")]
-        except ValueError:
-            raise InstrumentBadReply(self.role, self.resource, command,
-                                     f"returned {_shorten(reply)!r}, not a number") from None
-
-    def query_bools(self, command: str, timeout_s: float | None = None) -> list[bool]:
-        """A comma-separated boolean reply (1/0, ON/OFF)."""
-        reply = self.query(command, timeout_s)
-        try:
-            return [parse_scpi_bool(part) for part in reply.split(",")]
-        except ValueError:
-            raise InstrumentBadReply(self.role, self.resource, command,
-                                     f"returned {_shorten(reply)!r}, not 1/0 values") from None
-
-    def query_bool(self, command: str, timeout_s: float | None = None) -> bool:
-        values = self.query_bools(command, timeout_s)
-        if len(values) != 1:
-            raise InstrumentBadReply(self.role, self.resource, command,
-                                     f"returned {len(values)} values where one was expected")
-        return values[0]
-
     def check_errors(self) -> None:
         """Read SYST:ERR? until it is empty; InstrumentReportedError lists what was queued."""
         blamed = self._last_command
         found: list[tuple[int, str]] = []
         for _ in range(_MAX_ERROR_READS):
-            reply = self.query("SYST:ERR?")
+            # Each read takes an entry off the queue, so a read is never resent: a lost reply
+            # may have carried an error, and the caller must treat the queue as not clean.
+            reply = self._read_error_entry()
             try:
                 code, message = parse_error_entry(reply)
             except ValueError:
@@ -221,6 +274,25 @@ class ScpiLink:
         if found:
             raise InstrumentReportedError(self.role, self.resource, blamed, found)
 
+    def _read_error_entry(self) -> str:
+        # A read that never went out (the link was found closed) lost nothing: reconnect and
+        # read again. A read that went out and failed may have taken an entry with it.
+        for attempt in range(max(1, self.retry.attempts)):
+            try:
+                return self.query("SYST:ERR?", retry=False)
+            except InstrumentNotSent as exc:
+                if attempt + 1 >= self.retry.attempts:
+                    raise
+                self.retries += 1
+                try:
+                    self.reconnect()
+                except InstrumentOpenError:
+                    raise exc from None
+            except RETRYABLE as exc:
+                raise InstrumentBadReply(self.role, self.resource, "SYST:ERR?",
+                                         f"could not be read ({exc.detail}); an error entry may be lost") from exc
+        raise AssertionError("unreachable")
+
     def identify(self) -> str:
         return self.query("*IDN?")
 
@@ -235,12 +307,12 @@ class ScpiLink:
     def _prepare(self, command: str) -> Any:
         instrument = self._instrument
         if instrument is None:
-            raise InstrumentConnectionLost(self.role, self.resource, command,
-                                           "not sent: the link is not open (call open() or reconnect())")
+            raise InstrumentNotSent(self.role, self.resource, command,
+                                    "not sent: the link is not open (call open() or reconnect())")
         state = _socket_state(instrument)
         if state == "closed":
-            raise InstrumentConnectionLost(self.role, self.resource, command,
-                                           "not sent: the instrument closed the connection")
+            raise InstrumentNotSent(self.role, self.resource, command,
+                                    "not sent: the instrument closed the connection")
         if self._stale or state == "data":
             # A late reply to an earlier, failed query would otherwise answer this one.
             try:
@@ -288,17 +360,36 @@ class ScpiLink:
         return InstrumentError(self.role, self.resource, command, f"failed: {exc!r}")
 
 
+def _pyvisa_py_socket(instrument: Any) -> socket.socket | None:
+    """The TCP socket behind a pyvisa-py SOCKET session, or None for any other backend."""
+    try:
+        sock = instrument.visalib.sessions[instrument.session].interface
+    except Exception:
+        return None
+    return sock if isinstance(sock, socket.socket) and sock.fileno() >= 0 else None
+
+
+def _disable_send_delay(instrument: Any) -> None:
+    """Send each message at once (TCP_NODELAY).
+
+    pyvisa-py leaves Nagle's algorithm on, so a second short message (FETCh? after INIT)
+    waited about 40 ms for the delayed acknowledgement of the first.
+    """
+    sock = _pyvisa_py_socket(instrument)
+    if sock is not None and sock.family in (socket.AF_INET, socket.AF_INET6):
+        try:
+            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        except OSError:
+            pass  # an option the platform refuses costs speed, not correctness
+
+
 def _socket_state(instrument: Any) -> str:
     """'closed', 'data' (unread bytes waiting), 'idle', or 'unknown' for non-socket backends.
 
     Only pyvisa-py exposes its socket; other VISA libraries report a lost link themselves.
     """
-    try:
-        session = instrument.visalib.sessions[instrument.session]
-        sock = session.interface
-    except Exception:
-        return "unknown"
-    if not isinstance(sock, socket.socket) or sock.fileno() < 0:
+    sock = _pyvisa_py_socket(instrument)
+    if sock is None:
         return "unknown"
     try:
         readable, _, _ = select.select([sock], [], [], 0)

@@ -64,7 +64,7 @@ class SimBench:
         self.clock = ModelClock(settings.speed)
         self.parts = make_population(settings.seed, settings.parts, settings.defects)
         self.model = BenchModel(FixtureSpec(settings.sites, settings.rf_ohm, settings.rs_ohm,
-                                            settings.dmm_per_site))
+                                            settings.dmm_per_site), ideal=settings.ideal)
         self.command_log: list[CommandRecord] = []
         self._log_lock = threading.Lock()
         self.resources: dict[str, str] = {}
@@ -90,7 +90,7 @@ class SimBench:
             role = f"dmm{k}"
             self.instruments[role] = Dmm(m, k, s.seed, s.line_hz, **self._common(role, 2 + k))
         self.instruments["switch"] = FixtureSwitch(m, **self._common("switch", 10))
-        self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s,
+        self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
                                               **self._common("handler", 11))
 
     # --- life cycle ----------------------------------------------------------------------

@@ -1,7 +1,8 @@
 """Simulated part handler: indexes the lot's parts into the fixture sites and sorts them.
 
 Parts come in lot order, one per site per index; each id is presented once. An index takes
-`index_s` model seconds, during which the sites are empty.
+`index_s` model seconds, during which the sites are empty. `skip_parts` starts the lot after
+its first parts, as a handler does when a lot is resumed after those were sorted.
 """
 
 from __future__ import annotations
@@ -22,11 +23,14 @@ END_OF_LOT = "END"
 class Handler(Instrument):
     model_name = "SBH-40"
 
-    def __init__(self, model: BenchModel, parts: list[PartTruth], index_s: float, **kwargs) -> None:
+    def __init__(self, model: BenchModel, parts: list[PartTruth], index_s: float, skip_parts: int = 0,
+                 **kwargs) -> None:
+        if skip_parts < 0:
+            raise ValueError("skip_parts must be 0 or more")
         self.model = model
         self.parts = parts
         self.index_s = index_s
-        self.next_part = 0
+        self.next_part = min(skip_parts, len(parts))
         self.in_sites: list[PartTruth | None] = [None] * model.fixture.sites
         self.bins: Counter[int] = Counter()
         super().__init__(**kwargs)
@@ -39,6 +43,7 @@ class Handler(Instrument):
         site = integer(1, self.sites)
         tree.add("HANDler:SITes", query=lambda: str(self.sites))
         tree.add("HANDler:NEXT", query=self._next)
+        tree.add("HANDler:INDex", query=self._seated)
         tree.add("HANDler:BIN", self._bin, args=Arguments([site, integer(1, 99)]))
         tree.add("HANDler:BIN:COUNt", query=lambda b: str(self.bins[b]),
                  query_args=Arguments([integer(1, 99)]))
@@ -57,6 +62,10 @@ class Handler(Instrument):
         batch = self.parts[self.next_part:self.next_part + self.sites]
         self.next_part += len(batch)
         self._seat_all(batch + [None] * (self.sites - len(batch)))
+        return self._seated()
+
+    def _seated(self) -> str:
+        """The ids in the sites now, as NEXT? reported them (nothing moves)."""
         return ",".join(p.part_id if p else EMPTY_SITE for p in self.in_sites)
 
     def _seat_all(self, parts: list[PartTruth | None]) -> None:

@@ -15,12 +15,7 @@ from typing import cast
 import click
 
 from drivers.dmm import LoopDmm
-from drivers.errors import (
-    InstrumentConnectionLost,
-    InstrumentError,
-    InstrumentOpenError,
-    InstrumentTimeout,
-)
+from drivers.errors import InstrumentError, InstrumentOpenError
 from drivers.force import ForceSource
 from drivers.handler import ManualHandler, PartHandler
 from drivers.registry import DriverSettings, build_driver
@@ -28,6 +23,7 @@ from drivers.scpi_link import ScpiLink
 from drivers.supply import DualRailSupply
 from drivers.switch import FixtureSwitch
 from station.bench_config import BenchConfig
+from station.stop_signals import LotInterrupted
 
 # Defaults until the sequence configures the DMMs: 1 NPLC, 10 V range, autozero on.
 _DEFAULT_NPLC, _DEFAULT_RANGE_V = 1.0, 10.0
@@ -62,8 +58,8 @@ class Bench:
     def safe_state(self) -> list[str]:
         """Force to 0 V and off, then both rails down and off, then every relay open.
 
-        Each step is tried even if an earlier one failed; a step that fails on a timeout or a
-        lost connection is tried once more after reconnecting. Returns one line per step:
+        Each step is tried even if an earlier one failed; a step that still fails after the
+        link's own retries is tried once more after reconnecting. Returns one line per step:
         "role: action: ok" or "role: action: FAILED: why".
         """
         log: list[str] = []
@@ -96,10 +92,11 @@ class Bench:
 
 
 def _attempt(link: ScpiLink, step: Callable[[], None]) -> str:
+    """Run one safe-state step; after any instrument failure reconnect and run it once more."""
+    retried_before = link.retries
     try:
         step()
-        return "ok"
-    except (InstrumentTimeout, InstrumentConnectionLost) as first:
+    except InstrumentError as first:
         try:
             link.reconnect()
             step()
@@ -108,6 +105,8 @@ def _attempt(link: ScpiLink, step: Callable[[], None]) -> str:
             return f"FAILED: {again}"
     except Exception as exc:
         return f"FAILED: {exc}"
+    retried = link.retries - retried_before
+    return f"ok after {retried} retried transaction(s)" if retried else "ok"
 
 
 def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
@@ -137,12 +136,21 @@ def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
             link.close()
         raise
     try:
-        _known_state(bench)
+        _known_state_tried_twice(bench)
     except BaseException:
         bench.safe_state()
         bench.close()
         raise
     return bench
+
+
+def _known_state_tried_twice(bench: Bench) -> None:
+    # An error left in a queue means a setting may not have taken: the whole known state is
+    # sent again once (every command of it is harmless to repeat) before giving up.
+    try:
+        _known_state(bench)
+    except InstrumentError:
+        _known_state(bench)
 
 
 def _check_identity(link: ScpiLink, expected: str | None) -> None:
@@ -172,4 +180,8 @@ def _known_state(bench: Bench) -> None:
 
 
 def _prompt(text: str) -> str:
-    return str(click.prompt(text, default="", show_default=False))
+    try:
+        return str(click.prompt(text, default="", show_default=False))
+    except click.Abort:
+        # The operator's input closed (end of file, or Ctrl-D/Ctrl-C at the prompt): stop the lot.
+        raise LotInterrupted("operator input ended (no more part ids)") from None

@@ -2,7 +2,8 @@
 
 Exit codes scripts can rely on: 0 done; 2 refused input (a bad file or option: nothing was
 powered and nothing written); 3 the lot was stopped (instrument failure, Ctrl-C, SIGTERM:
-the bench was put in its safe state and the datalog holds every finished part).
+the bench was put in its safe state and the datalog holds every finished part); 1 the
+station itself failed (a bug, a full disk): also after the safe state, with one line saying why.
 """
 
 from __future__ import annotations
@@ -11,6 +12,8 @@ import signal
 import sys
 import tempfile
 import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import click
@@ -23,9 +26,13 @@ from drivers.errors import InstrumentError, RequestRefused
 from station import __version__
 from station.config_files import ConfigError
 from station.datalog import DatalogError, DatalogWriter
+from station.lot_resume import ResumeState
+from station.stop_signals import LotInterrupted, raise_interrupted, signals_deferred
 
+EXIT_SOFTWARE = 1
 EXIT_REFUSED = 2
 EXIT_STOPPED = 3
+DEFAULT_MAX_FAULTS = 3
 DEMO_SEQUENCE = Path(sequences_package.__file__).parent / "px401_screen.yaml"
 DEMO_LIMITS = Path(limits_package.__file__).parent / "px401.yaml"
 
@@ -36,56 +43,120 @@ class Refused(click.ClickException):
     exit_code = EXIT_REFUSED
 
 
-def _terminate(signum, frame) -> None:
-    from station.runner import LotInterrupted
+class StationGroup(click.Group):
+    """Any error that is not a refused input still comes out as one line (exit 1), not a trace."""
 
-    raise LotInterrupted(f"stopped by signal {signal.Signals(signum).name}")
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except (click.exceptions.Exit, click.ClickException, click.Abort, SystemExit):
+            raise
+        except KeyboardInterrupt:
+            click.echo("stopped by Ctrl-C", err=True)
+            sys.exit(EXIT_STOPPED)
+        except LotInterrupted as exc:
+            click.echo(str(exc), err=True)
+            sys.exit(EXIT_STOPPED)
+        except Exception as exc:
+            click.echo(f"station error: {type(exc).__name__}: {exc}", err=True)
+            sys.exit(EXIT_SOFTWARE)
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.group(cls=StationGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="station")
 def main() -> None:
     """Screen precision op-amps on a bench of SCPI instruments, or dry-run on the simulated bench."""
 
 
-def _run_lot(bench_path: Path, sequence_path: Path, limits_path: Path, out: Path, lot_id: str,
-             operator: str, mode: str, force: bool, console: Console, expected_parts: int | None,
-             after=None, stdf: bool = False) -> int:
-    """Plan, open the bench, run the lot with progress, print the summary. Returns the exit code."""
+@dataclass(frozen=True)
+class LotJob:
+    """One lot to run: the files, where it is logged, and how it stops."""
+
+    bench_path: Path
+    sequence_path: Path
+    limits_path: Path
+    out: Path
+    lot_id: str
+    operator: str
+    mode: str
+    force: bool = False
+    expected_parts: int | None = None
+    stdf: bool = False
+    resume: ResumeState | None = None
+    max_faults: int = DEFAULT_MAX_FAULTS
+    extra_header: dict = field(default_factory=dict)
+
+
+def _run_lot(job: LotJob, console: Console, after: Callable[[Path], None] | None = None) -> int:
+    """Plan, open the bench, run the lot with progress, print the summary. Returns the exit code.
+
+    SIGTERM stops the lot the way Ctrl-C does; both, and any error, end in the safe state."""
+    previous = signal.signal(signal.SIGTERM, raise_interrupted)
+    try:
+        return _plan_and_run(job, console, after)
+    except (LotInterrupted, KeyboardInterrupt) as exc:
+        # Before the lot loop (opening the bench): nothing was powered yet.
+        _say(console, f"stopped before the lot started: {exc or 'Ctrl-C'}", "bold red")
+        return EXIT_STOPPED
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] | None) -> int:
     from station.bench import open_bench
     from station.console import LotProgress, bin_summary, lot_line
     from station.runner import LotRunner, LotSettings
     from station.screen_plan import build_plan
 
     try:
-        plan = build_plan(bench_path, sequence_path, limits_path)
-        writer = DatalogWriter(out, force=force)
+        plan = build_plan(job.bench_path, job.sequence_path, job.limits_path)
+        writer = DatalogWriter(job.out, force=job.force, resume=job.resume)
     except (ConfigError, DatalogError) as exc:
         raise Refused(str(exc)) from None
     try:
         bench = open_bench(plan.bench)
     except (InstrumentError, RequestRefused) as exc:
         raise click.ClickException(f"cannot open the bench: {exc}") from None
-    previous = signal.signal(signal.SIGTERM, _terminate)
+    if job.resume is not None:
+        _tell_resume(job.resume, console)
     try:
-        settings = LotSettings(lot_id=lot_id, operator=operator, mode=mode)
-        with LotProgress(console, expected_parts, lot_id) as progress:
-            runner = LotRunner(plan, bench, writer, settings, on_part=progress.update)
+        settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
+                               max_faults=job.max_faults, extra_header=job.extra_header)
+        with LotProgress(console, job.expected_parts, job.lot_id) as progress:
+            runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
+                               resume=job.resume, tell=lambda text: _say(console, text, "yellow"))
             tally = runner.run()
-        if after is not None:
-            after(out)
-        _close_datalog(out, stdf, console)
+        with signals_deferred():       # the end-of-lot files are written whole
+            if after is not None and tally.stop_code != EXIT_SOFTWARE:
+                after(job.out)
+            if tally.stop_code != EXIT_SOFTWARE:
+                _close_datalog(job.out, job.stdf, console)
     finally:
-        signal.signal(signal.SIGTERM, previous)
         bench.close()
     for table in bin_summary(tally, plan.table):
         console.print(table)
     console.print(lot_line(tally))
-    console.print(f"datalog: {out}")
+    _say(console, "safe state: " + "; ".join(runner.safe_state_log))
+    _say(console, f"datalog: {job.out}")
     if tally.stopped_because:
-        console.print(f"[bold red]lot stopped:[/] {tally.stopped_because}; bench in safe state")
-        return EXIT_STOPPED
+        _say(console, f"lot stopped: {tally.stopped_because}; bench in safe state", "bold red")
+        _say(console, f"resume it with: station {job.mode} --resume {job.out} ...")
+        return tally.stop_code or EXIT_STOPPED
     return 0
+
+
+def _say(console: Console, text: str, style: str | None = None) -> None:
+    """Print text that may hold instrument replies and SCPI commands: no markup, no emoji
+    (rich would turn ':ZERO:' into an emoji and '[...]' into styles)."""
+    console.print(text, style=style, markup=False, emoji=False, highlight=False)
+
+
+def _tell_resume(state: ResumeState, console: Console) -> None:
+    for warning in state.warnings:
+        _say(console, f"resume: {warning}", "yellow")
+    done = len(state.done_ids)
+    _say(console, f"resuming lot {state.header.get('lot_id')}: {done} part(s) already logged"
+                  + (f"; retesting {', '.join(state.interrupted)}" if state.interrupted else ""))
 
 
 def _close_datalog(out: Path, stdf: bool, console: Console) -> None:
@@ -96,6 +167,36 @@ def _close_datalog(out: Path, stdf: bool, console: Console) -> None:
     if stdf:
         console.print(f"STDF V4: {write_stdf(out)}")
     write_manifest(out)
+
+
+def _inspect_resume(folder: Path, mode: str, sequence: Path, limits: Path, lot_id: str | None) -> ResumeState:
+    from station.lot_resume import inspect_resume
+
+    try:
+        return inspect_resume(folder, mode=mode, sequence=sequence, limits=limits, lot_id=lot_id)
+    except DatalogError as exc:
+        raise Refused(str(exc)) from None
+
+
+def _lot_id(value: str | None, option: str = "--lot") -> str | None:
+    if value is None:
+        return None
+    if not value.strip():
+        raise Refused(f"{option} must not be empty (give the lot id, e.g. --lot LOT-0042)")
+    if any(c in value for c in ",\n\r"):
+        raise Refused(f"{option} {value!r}: a lot id cannot hold commas or line breaks")
+    return value.strip()
+
+
+_MAX_FAULTS = click.option(
+    "--max-faults", type=click.IntRange(1, 1000), default=DEFAULT_MAX_FAULTS, show_default=True,
+    help="Faulted attempts in a row (instrument failures) before the lot stops.")
+_RESUME = click.option(
+    "--resume", "resume_dir", type=click.Path(path_type=Path), default=None,
+    help="Continue the interrupted lot logged in this folder (parts logged are not tested again).")
+
+# SimSettings fields a resumed dry run takes from lot.json, so it simulates the same lot.
+_SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_site")
 
 
 @main.command("dry-run")
@@ -115,17 +216,32 @@ def _close_datalog(out: Path, stdf: bool, console: Console) -> None:
               help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
-def dry_run(parts: int, sites: int, seed: int, out: Path | None, lot_id: str | None, operator: str,
-            bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float, force: bool,
-            stdf: bool) -> None:
+@_RESUME
+@_MAX_FAULTS
+@click.pass_context
+def dry_run(ctx: click.Context, parts: int, sites: int, seed: int, out: Path | None, lot_id: str | None,
+            operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
+            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
     console = Console()
-    lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
-    out = out or Path("datalogs") / lot_id
+    lot_id = _lot_id(lot_id)
     settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
+    resume = None
+    if resume_dir is not None:
+        if out is not None and Path(out) != Path(resume_dir):
+            raise Refused("--resume continues the lot in its own folder: leave out --out")
+        if force:
+            raise Refused("--resume and --force do not go together: --force starts a new lot")
+        resume = _inspect_resume(resume_dir, "dry-run", sequence_path, limits_path, lot_id)
+        _resumed_sim_settings(ctx, resume, settings)
+        user_bench = _bench_copy(resume_dir)
+        out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
+    lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
+    out = out or Path("datalogs") / lot_id
+    extra = {"dry_run": {key: getattr(settings, key) for key in _SIM_KEYS}}
     with SimBench(settings) as sim, tempfile.TemporaryDirectory() as temp:
         sim.start()
         config = yaml.safe_load(sim.bench_config_text())
@@ -134,11 +250,36 @@ def dry_run(parts: int, sites: int, seed: int, out: Path | None, lot_id: str | N
         bench_file = Path(temp) / "bench.yaml"
         header = "# Bench config of the simulated bench for this dry run (written by the station).\n"
         bench_file.write_text(header + yaml.safe_dump(config, sort_keys=False), encoding="utf-8")
-        console.print(f"dry run: simulated bench on loopback, seed {seed}, {parts} parts, {sites} site(s)")
-        code = _run_lot(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
-                        console, parts, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"),
-                        stdf=stdf)
+        console.print(f"dry run: simulated bench on loopback, seed {settings.seed}, {settings.parts} parts, "
+                      f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
+        job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
+                     settings.parts, stdf, resume, max_faults, extra)
+        code = _run_lot(job, console, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"))
     sys.exit(code)
+
+
+def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> None:
+    """The simulated lot of the folder, its handler starting after the parts already sorted."""
+    recorded = resume.header.get("dry_run")
+    if not isinstance(recorded, dict) or any(key not in recorded for key in _SIM_KEYS):
+        raise Refused(f"{resume.folder}/lot.json: no record of the simulated lot (dry_run); "
+                      "this dry run cannot be resumed")
+    for key in ("seed", "parts", "sites"):
+        given = ctx.get_parameter_source(key) is not click.core.ParameterSource.DEFAULT
+        if given and getattr(settings, key) != recorded[key]:
+            raise Refused(f"--{key} {getattr(settings, key)}: the lot in {resume.folder} was simulated with "
+                          f"--{key} {recorded[key]}; leave it out when resuming")
+    for key in _SIM_KEYS:
+        setattr(settings, key, recorded[key])
+    settings.skip_parts = resume.presented_before
+
+
+def _bench_copy(folder: Path) -> dict | None:
+    try:
+        data = yaml.safe_load((Path(folder) / "bench.yaml").read_text(encoding="utf-8"))
+    except (OSError, yaml.YAMLError):
+        return None
+    return data if isinstance(data, dict) else None
 
 
 def _read_bench_overrides(path: Path, settings) -> dict:
@@ -158,19 +299,35 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--bench", "bench_path", type=click.Path(path_type=Path), required=True, help="Bench config (YAML).")
 @click.option("--sequence", "sequence_path", type=click.Path(path_type=Path), required=True, help="Sequence (YAML).")
 @click.option("--limits", "limits_path", type=click.Path(path_type=Path), required=True, help="Limit table (YAML).")
-@click.option("--lot", "lot_id", required=True, help="Lot id.")
+@click.option("--lot", "lot_id", default=None, help="Lot id (required unless --resume).")
 @click.option("--operator", default="", help="Operator name for the datalog.")
-@click.option("--out", type=click.Path(path_type=Path), required=True, help="Datalog folder.")
+@click.option("--out", type=click.Path(path_type=Path), default=None, help="Datalog folder (required unless --resume).")
 @click.option("--parts", "expected_parts", type=click.IntRange(1), default=None, help="Expected lot size, for the progress bar.")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
-def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str, operator: str, out: Path,
-        expected_parts: int | None, force: bool, stdf: bool) -> None:
+@_RESUME
+@_MAX_FAULTS
+def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
+        out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
+        max_faults: int) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
-    if not lot_id.strip():
-        raise Refused("--lot must not be empty")
-    sys.exit(_run_lot(bench_path, sequence_path, limits_path, out, lot_id.strip(), operator, "run", force,
-                      Console(), expected_parts, stdf=stdf))
+    lot_id = _lot_id(lot_id)
+    resume = None
+    if resume_dir is not None:
+        if out is not None and Path(out) != Path(resume_dir):
+            raise Refused("--resume continues the lot in its own folder: leave out --out")
+        if force:
+            raise Refused("--resume and --force do not go together: --force starts a new lot")
+        resume = _inspect_resume(resume_dir, "run", sequence_path, limits_path, lot_id)
+        out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
+        operator = operator or str(resume.header.get("operator", ""))
+    if lot_id is None:
+        raise Refused("--lot is required (the lot id), unless --resume continues a lot")
+    if out is None:
+        raise Refused("--out is required (the datalog folder), unless --resume continues a lot")
+    job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
+                 stdf, resume, max_faults)
+    sys.exit(_run_lot(job, Console()))
 
 
 @main.group("sim")

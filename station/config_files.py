@@ -35,7 +35,13 @@ class ConfigError(Exception):
         text += self.message
         if self.hint:
             text += f" ({self.hint})"
-        return text
+        return _one_line(text)
+
+
+def _one_line(text: str) -> str:
+    """Keys and values from the file may hold line breaks or control characters: escape them,
+    so the message stays one line."""
+    return "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in text)
 
 
 @dataclass

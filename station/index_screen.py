@@ -3,7 +3,10 @@
 For each index: the contact check (each site powered alone, Iq against the open/short
 window, one re-seat and retest on failure), then the sequence's tests on the sites that made
 contact, then grading and binning per site. An instrument failure anywhere in the index is a
-tester fault: every part of the index goes to the tester-fault bin, never to a DUT fail bin.
+tester fault: every part of the index goes to the tester-fault bin, never to a DUT fail bin
+(the runner then retests them once the bench answers again). The error queue of every
+instrument is read at the end of each index: an entry means a command may not have taken
+effect, so the index's measurements are not trusted.
 """
 
 from __future__ import annotations
@@ -31,6 +34,7 @@ from station.rail_points import rails_for
 from station.screen_plan import ScreenPlan
 from station.sequence import TestStep
 from station.site_readings import SiteReader
+from station.sweep_order import visit_order
 from station.test_catalog import TestDef
 
 CONTACT_MIN_WAIT_S = 0.005  # supply current read-back settles within a few ms
@@ -55,6 +59,7 @@ class PartOutcome:
     verdict: Verdict
     rows: list[ResultRow]
     fault: str = ""
+    error: InstrumentError | None = None   # the instrument failure behind `fault`
 
 
 class IndexScreen:
@@ -100,17 +105,22 @@ class IndexScreen:
             return []
         try:
             self._run_tests(work)
+            self._check_error_queues()
         except InstrumentError as exc:
             self.forget_state()
             reason = str(exc)
-            return [PartOutcome(w.site, w.part_id, tester_fault_verdict(self.plan.table, reason), [], reason)
-                    for w in work]
+            return [PartOutcome(w.site, w.part_id, tester_fault_verdict(self.plan.table, reason), [], reason,
+                                exc) for w in work]
         finally:
             try:
                 self.bench.switch.power_sites(set())  # parts are never handled powered
             except InstrumentError:
                 pass
         return [self._grade(w) for w in work]
+
+    def _check_error_queues(self) -> None:
+        for link in self.bench.all_links().values():
+            link.check_errors()
 
     def _run_tests(self, work: list[SiteWork]) -> None:
         seq = self.plan.sequence
@@ -152,9 +162,11 @@ class IndexScreen:
             conditions = [(rails_for(0.0, span), 0.0) for span in step.spans_v]
         else:
             raise ValueError(f"no sweep for test kind {step.kind!r}")
-        # Visit the conditions in monotonic order so that each source step is small (the
-        # thermal tail of the settling grows with the step), but log them in written order.
-        order = sorted(range(len(conditions)), key=lambda i: (conditions[i][0][1], conditions[i][1]), reverse=True)
+        # Visit the conditions in monotonic order, from the end nearer to the bench's state, so
+        # that each source step is small (the thermal tail of the settling grows with the
+        # step), but log them in written order.
+        here = (self._rails, self._force) if self._rails is not None and self._force is not None else None
+        order = visit_order(conditions, here)
         values: dict[int, dict[int, float]] = {s: {} for s in sites}
         for i in order:
             rails, force = conditions[i]

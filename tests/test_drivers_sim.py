@@ -17,6 +17,7 @@ from drivers.errors import (
     RequestRefused,
 )
 from drivers.handler import ScpiHandler
+from drivers.retry import NO_RETRY
 from station.bench import Bench, open_bench
 from station.bench_config import BenchConfig, parse_bench_config
 
@@ -203,6 +204,7 @@ def test_scpi_handler_indexes_and_bins(bench):
 
 def test_timeout_names_role_and_command_and_link_recovers(bench, sim):
     link = bench.force.link
+    link.retry = NO_RETRY       # one transaction; the retry policy is tested in test_reliability_retry.py
     link.timeout_s = FAULT_TIMEOUT_S
     sim.faults("force").timeout_next = 1
     with pytest.raises(InstrumentTimeout) as caught:
@@ -215,6 +217,7 @@ def test_timeout_names_role_and_command_and_link_recovers(bench, sim):
 
 def test_late_reply_does_not_answer_the_next_query(bench, sim):
     link = bench.force.link
+    link.retry = NO_RETRY
     link.timeout_s = FAULT_TIMEOUT_S
     sim.faults("force").latency_s = 20 * 0.6          # 0.6 s of wall time at speed 20
     with pytest.raises(InstrumentTimeout):
@@ -226,6 +229,7 @@ def test_late_reply_does_not_answer_the_next_query(bench, sim):
 
 def test_dropped_connection_then_reconnect(bench, sim):
     link = bench.dmms[1].link
+    link.retry = NO_RETRY
     link.timeout_s = FAULT_TIMEOUT_S
     sim.faults("dmm2").drop_after = 1
     with pytest.raises(InstrumentConnectionLost) as caught:
@@ -238,6 +242,7 @@ def test_dropped_connection_then_reconnect(bench, sim):
 
 def test_garbage_reply_is_bad_reply(bench, sim):
     link = bench.supply.link
+    link.retry = NO_RETRY
     for _ in range(3):                      # the sim garbles in several ways; try a few
         sim.faults("supply").garbage_next = 1
         with pytest.raises(InstrumentBadReply) as caught:
@@ -254,7 +259,8 @@ def test_safe_state_turns_everything_off_when_force_fails(bench, sim):
     bench.force.set_level(1.0)
     bench.force.output(True)
     bench.force.link.timeout_s = FAULT_TIMEOUT_S
-    sim.faults("force").timeout_next = 10             # also defeats the retry after reconnecting
+    bench.force.link.retry = NO_RETRY                 # keeps the dead instrument's part short
+    sim.faults("force").timeout_next = 10             # defeats the reconnect and the second try
     log = bench.safe_state()
     assert log[0].startswith("force:") and "FAILED" in log[0] and "timed out" in log[0]
     assert log[1].startswith("supply:") and log[1].endswith(": ok")
@@ -272,7 +278,8 @@ def test_safe_state_reconnects_after_a_drop(bench, sim):
     bench.force.link.timeout_s = FAULT_TIMEOUT_S
     sim.faults("force").drop_after = 1
     log = bench.safe_state()
-    assert "ok after reconnecting" in log[0]
+    assert log[0].startswith("force:") and "ok after" in log[0]
+    assert bench.force.link.reconnects >= 1
     assert sim.state()["force"] == {"level_v": 0.0, "output": False}
 
 

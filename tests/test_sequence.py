@@ -8,7 +8,12 @@ import pytest
 
 from station.cli import DEMO_SEQUENCE
 from station.config_files import ConfigError
-from station.sequence import check_bench_safety, check_region_coverage, load_sequence, parse_sequence
+from station.sequence import (
+    check_bench_safety,
+    check_region_coverage,
+    load_sequence,
+    parse_sequence,
+)
 
 GOOD = """\
 sequence: s1

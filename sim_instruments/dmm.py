@@ -74,8 +74,13 @@ class Dmm(Instrument):
         self.autozero = True
         self._acquisition = None
 
+    @property
+    def ideal(self) -> bool:
+        """Ideal bench: readings are instant (no integration wait), noise is kept."""
+        return self.model.ideal
+
     def wait_pending(self) -> None:
-        if self._acquisition is not None:
+        if self._acquisition is not None and not self.ideal:
             self.clock.sleep_until(self._acquisition.end)
 
     def build(self, tree: CommandTree) -> None:
@@ -122,7 +127,8 @@ class Dmm(Instrument):
 
     def _set_autozero(self, value: object) -> None:
         if value == "ONCE":
-            self.clock.sleep(self.nplc / self.line_hz)  # one zero measurement, then off
+            if not self.ideal:
+                self.clock.sleep(self.nplc / self.line_hz)  # one zero measurement, then off
             self.autozero = False
         else:
             self.autozero = bool(value)
@@ -164,7 +170,8 @@ class Dmm(Instrument):
 
     def _fetch(self, acq: Acquisition) -> str:
         if acq.readings is None:
-            self.clock.sleep_until(acq.end)  # the model lock is free while we integrate
+            if not self.ideal:
+                self.clock.sleep_until(acq.end)  # the model lock is free while we integrate
             acq.readings = [self._reading(acq, i) for i in range(acq.count)]
         return ",".join(acq.readings)
 

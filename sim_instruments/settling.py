@@ -76,6 +76,14 @@ class NodeHistory:
                 self.components.append(Component(t, max(t, t_start), amp, extra_tau))
         self._prune(t)
 
+    def jump(self, t: float, new_target: float) -> None:
+        """At `t` the node is at `new_target` at once, with no transient (the ideal bench)."""
+        self.components = []
+        if new_target != self.target:
+            self.times.append(t)
+            self.targets.append(new_target)
+        self._prune(t)
+
     def value(self, t: float) -> float:
         return self.target_at(t) + sum(c.value(t) for c in self.components)
 

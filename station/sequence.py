@@ -25,19 +25,30 @@ FORCE_LEVEL_LIMIT_V = 10.0  # the force source's own range, per docs/bench-comma
 class Settle:
     """How long to wait after a source change before a reading counts.
 
-    Either a fixed `wait_s`, or adaptive: read until two successive readings agree within
-    `stable_rti_v` (referred to the input) on every site, after at least `min_s` and for at
-    most `max_s`.
+    One of three policies:
+    - fixed: wait `wait_s`, then read once;
+    - adaptive, absolute: read until two successive readings agree within `stable_rti_v`
+      (referred to the input) on every site;
+    - adaptive, noise-derived (`stable_within: auto`): read until the residual predicted from
+      an exponential approach with time constant `tail_s` is below `sigmas` times the noise
+      of the reading, the noise being measured by the station itself.
+    Adaptive settling waits at least `min_s` and at most `max_s`.
     """
 
     wait_s: float | None = None
     stable_rti_v: float | None = None
     min_s: float = 0.0
     max_s: float = 0.5
+    sigmas: float | None = None     # set for `stable_within: auto`
+    tail_s: float = 0.04            # slowest time constant of the approach (auto only)
 
     @property
     def adaptive(self) -> bool:
-        return self.stable_rti_v is not None
+        return self.stable_rti_v is not None or self.sigmas is not None
+
+    @property
+    def auto(self) -> bool:
+        return self.sigmas is not None
 
 
 @dataclass(frozen=True)
@@ -145,11 +156,16 @@ class _Reader:
     def settle(self, value: Any, path: list, default: Settle) -> Settle:
         if value is None:
             return default
-        spec = self.mapping(value, path, {"wait", "stable_within", "min", "max"})
+        spec = self.mapping(value, path, {"wait", "stable_within", "min", "max", "sigmas", "tail"})
         if ("wait" in spec) == ("stable_within" in spec):
             raise self.doc.error(path, "give either 'wait' (fixed settling) or 'stable_within' "
                                        "(adaptive settling), not both or neither",
-                                 "e.g. settle: {wait: 50 ms} or settle: {stable_within: 0.3 uV, max: 300 ms}")
+                                 "e.g. settle: {wait: 50 ms} or settle: {stable_within: auto, max: 300 ms}")
+        auto = spec.get("stable_within") == "auto"
+        for key in ("sigmas", "tail"):
+            if key in spec and not auto:
+                raise self.doc.error([*path, key], f"'{key}' applies only to 'stable_within: auto'",
+                                     "remove it, or write stable_within: auto")
         min_s = self.quantity(spec.get("min", 0.0), [*path, "min"], "s")
         max_s = self.positive(spec.get("max", default.max_s), [*path, "max"], "s")
         if min_s < 0 or min_s > max_s:
@@ -159,6 +175,10 @@ class _Reader:
             if wait < 0:
                 raise self.doc.error([*path, "wait"], "a settling wait cannot be negative")
             return Settle(wait_s=wait, min_s=min_s, max_s=max(max_s, wait))
+        if auto:
+            sigmas = self.positive(spec.get("sigmas", 2.0), [*path, "sigmas"], "V/V")  # a plain number
+            tail = self.positive(spec.get("tail", "40 ms"), [*path, "tail"], "s")
+            return Settle(sigmas=sigmas, tail_s=tail, min_s=min_s, max_s=max_s)
         return Settle(stable_rti_v=self.positive(spec["stable_within"], [*path, "stable_within"], "V"),
                       min_s=min_s, max_s=max_s)
 

@@ -1,0 +1,188 @@
+"""`python -m benchmarks [--quick] [--json FILE]`: test time against the physics floor,
+adaptive against fixed settling, the station's own overhead, multi-site throughput,
+accuracy against the simulator's truth, and datalog speed. See benchmarks/README.md.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import statistics
+import tempfile
+from pathlib import Path
+
+import yaml
+
+from benchmarks.datalog_speed import grow_datalog, summary_seconds, writer_rows_per_s
+from benchmarks.lot_run import LotRun, run_lot
+from benchmarks.machine import machine_info
+from benchmarks.overhead import replay, replay_through_links, station_on_ideal_bench
+from benchmarks.physics_floor import FloorBench, index_floor, worst_case_wait
+from benchmarks.report import print_report
+from benchmarks.sizes import SIZES, Sizes
+from benchmarks.truth_score import score_datalog, truth_parts
+from sim_instruments.bench import SimSettings
+from sim_instruments.population import make_population
+from station.cli import DEMO_LIMITS, DEMO_SEQUENCE
+from station.limit_tables import load_limit_table
+from station.sequence import load_sequence
+
+SEED = 11
+
+
+def fixed_sequence(folder: Path, wait_s: float) -> Path:
+    """The demo sequence with its adaptive settling replaced by a fixed wait."""
+    data = yaml.safe_load(DEMO_SEQUENCE.read_text(encoding="utf-8"))
+    data["settle"] = {"wait": f"{wait_s * 1e3:g} ms"}
+    for test in data["tests"]:
+        test.pop("settle", None)
+    path = folder / "px401_fixed.yaml"
+    path.write_text("# Demo sequence with a fixed worst-case settling wait (benchmark).\n"
+                    + yaml.safe_dump(data, sort_keys=False), encoding="utf-8")
+    return path
+
+
+def steady_floor_ratio(run: LotRun, sequence_path: Path) -> tuple[float, float, float]:
+    """(test time / floor, test time per part, floor per part) over the indexes after the
+    first (the first one also measures the DMM noise, once per lot)."""
+    sequence = load_sequence(sequence_path)
+    truth = truth_parts(run.folder / "sim_truth.csv")
+    sites = int(run.parts["SITE_NUM"].max())
+    ids = run.parts["PART_ID"].tolist()
+    test = floor = 0.0
+    counted = 0
+    for k, index_s in enumerate(run.index_s):
+        chunk = ids[k * sites:(k + 1) * sites]
+        if k == 0 and len(run.index_s) > 1:
+            continue
+        test += index_s
+        floor += index_floor(sequence, [truth[i] for i in chunk], FloorBench())
+        counted += len(chunk)
+    return test / floor, test / counted, floor / counted
+
+
+def steady_per_part(run: LotRun) -> float:
+    times = run.index_s[1:] if len(run.index_s) > 1 else run.index_s
+    sites = int(run.parts["SITE_NUM"].max())
+    return sum(times) / (len(times) * sites)
+
+
+def timing(sizes: Sizes, work: Path, fixed_path: Path) -> dict:
+    base = SimSettings(seed=SEED, sites=1, parts=sizes.timing_parts, speed=sizes.timing_speed)
+    adaptive, fixed = [], []
+    for rep in range(sizes.repeats):
+        adaptive.append(run_lot(base, DEMO_SEQUENCE, DEMO_LIMITS, work / f"adaptive{rep}"))
+        fixed.append(run_lot(base, fixed_path, DEMO_LIMITS, work / f"fixed{rep}"))
+    floors = [steady_floor_ratio(run, DEMO_SEQUENCE) for run in adaptive]
+    fixed_floors = [steady_floor_ratio(run, fixed_path) for run in fixed]
+    speedups = [steady_per_part(f) / steady_per_part(a) for a, f in zip(adaptive, fixed, strict=True)]
+    multi = SimSettings(seed=SEED, sites=4, parts=sizes.multisite_parts, speed=sizes.timing_speed)
+    one = SimSettings(seed=SEED, sites=1, parts=sizes.multisite_parts, speed=sizes.timing_speed)
+    ratios, scanner_ratios, four_floor = [], [], []
+    for rep in range(sizes.repeats):
+        single = run_lot(one, DEMO_SEQUENCE, DEMO_LIMITS, work / f"one{rep}")
+        four = run_lot(multi, DEMO_SEQUENCE, DEMO_LIMITS, work / f"four{rep}")
+        ratios.append(four.parts_per_hour / single.parts_per_hour)
+        four_floor.append(steady_floor_ratio(four, DEMO_SEQUENCE)[0])
+        if rep == 0:
+            scan = run_lot(SimSettings(seed=SEED, sites=4, parts=sizes.multisite_parts, speed=sizes.timing_speed,
+                                       dmm_per_site=False), DEMO_SEQUENCE, DEMO_LIMITS, work / "scanner")
+            scanner_ratios.append(scan.parts_per_hour / single.parts_per_hour)
+            pph = {"1 site": single.parts_per_hour, "4 sites": four.parts_per_hour,
+                   "4 sites, one DMM": scan.parts_per_hour}
+    return {
+        "floor_ratio": _median(f[0] for f in floors),
+        "floor_ratio_4_sites": _median(four_floor),
+        "test_s_per_part": _median(f[1] for f in floors),
+        "floor_s_per_part": _median(f[2] for f in floors),
+        "fixed_test_s_per_part": _median(f[1] for f in fixed_floors),
+        "adaptive_speedup": _median(speedups),
+        "multisite_speedup_4": _median(ratios),
+        "multisite_speedup_4_single_dmm": _median(scanner_ratios),
+        "parts_per_hour": pph,
+        "timeouts_per_part": _median(r.stats.timeouts / r.parts_count for r in adaptive),
+        "groups_per_condition": _median(r.stats.readings / r.stats.conditions for r in adaptive),
+    }
+
+
+def accuracy(sizes: Sizes, work: Path, fixed_path: Path) -> dict:
+    sequence, table = load_sequence(DEMO_SEQUENCE), load_limit_table(DEMO_LIMITS)
+    big = run_lot(SimSettings(seed=SEED, sites=4, parts=sizes.accuracy_parts, speed=sizes.accuracy_speed),
+                  DEMO_SEQUENCE, DEMO_LIMITS, work / "accuracy")
+    score = score_datalog(big.folder, sequence, table)
+    small = run_lot(SimSettings(seed=SEED, sites=4, parts=sizes.compare_parts, speed=sizes.accuracy_speed),
+                    fixed_path, DEMO_LIMITS, work / "accuracy_fixed")
+    common = set(small.parts["PART_ID"])
+    adaptive_common = score_datalog(big.folder, sequence, table, only=common)
+    fixed_common = score_datalog(small.folder, load_sequence(fixed_path), table, only=common)
+    return {
+        "cmrr_rms_error_db": {"low": score.errors["cmrr_db_low"], "high": score.errors["cmrr_db_high"]},
+        "misbin_rate": score.misbin_rate, "misbins": score.misbins, "escapes": score.escapes,
+        "accuracy_parts": score.parts, "rms_errors": score.errors,
+        "rms_errors_adaptive_common": adaptive_common.errors, "rms_errors_fixed_common": fixed_common.errors,
+        "compare_parts": len(common), "datalog": str(big.folder),
+    }
+
+
+def overhead(sizes: Sizes, work: Path) -> dict:
+    settings = SimSettings(seed=SEED, sites=4, parts=sizes.overhead_parts)
+    ratios, link_ratios, per_tx = [], [], []
+    for rep in range(sizes.repeats):
+        station_s, records, _ = station_on_ideal_bench(settings, DEMO_SEQUENCE, DEMO_LIMITS, work / f"ideal{rep}")
+        plain_s = replay(settings, records)
+        link_s = replay_through_links(settings, records)
+        ratios.append(station_s / plain_s)
+        link_ratios.append(link_s / plain_s)
+        per_tx.append(1e3 * plain_s / len(records))
+    return {"overhead_ratio": _median(ratios), "link_replay_ratio": _median(link_ratios),
+            "replay_ms_per_transaction": _median(per_tx), "transactions": len(records)}
+
+
+def datalog(sizes: Sizes, work: Path, source: Path) -> dict:
+    rates = [writer_rows_per_s(work / f"writer{rep}", sizes.writer_parts, DEMO_SEQUENCE)
+             for rep in range(sizes.repeats)]
+    figures: dict = {"datalog_rows_per_s": _median(rates)}
+    try:
+        rows = grow_datalog(source, work / "big", sizes.summary_rows)
+        times = [summary_seconds(work / "big") for _ in range(sizes.repeats)]
+    except ImportError as exc:  # the review summary is written concurrently
+        figures.update(summary_1m_rows_s=None, summary_missing=f"station.review_summary not usable: {exc}")
+        return figures
+    total = _median(t[0] for t in times)
+    figures.update(summary_rows=rows, summary_load_and_summarise_s=total,
+                   summary_summarise_only_s=_median(t[1] for t in times),
+                   summary_1m_rows_s=total * 1_000_000 / rows)
+    return figures
+
+
+def _median(values) -> float:
+    values = [v for v in values if v is not None and not math.isnan(v)]
+    return statistics.median(values) if values else math.nan
+
+
+def main(argv: list[str] | None = None) -> dict:
+    parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__)
+    parser.add_argument("--quick", action="store_true", help="fewer parts and repetitions (under two minutes)")
+    parser.add_argument("--smoke", action="store_true", help=argparse.SUPPRESS)  # tiny sizes, for the test suite
+    parser.add_argument("--json", type=Path, help="also write the figures here as JSON")
+    args = parser.parse_args(argv)
+    sizes = SIZES["smoke" if args.smoke else "quick" if args.quick else "full"]
+    with tempfile.TemporaryDirectory(prefix="ampscreen-bench-") as temp:
+        work = Path(temp)
+        wait = worst_case_wait(load_sequence(DEMO_SEQUENCE), make_population(SEED, 200), FloorBench())
+        fixed_path = fixed_sequence(work, wait)
+        figures: dict = {"mode": sizes.name, "machine": machine_info(), "sizes": sizes.as_dict(),
+                         "fixed_wait_s": wait}
+        figures.update(timing(sizes, work, fixed_path))
+        figures.update(accuracy(sizes, work, fixed_path))
+        figures.update(overhead(sizes, work))
+        figures.update(datalog(sizes, work, Path(figures.pop("datalog"))))
+    print_report(figures)
+    if args.json:
+        args.json.write_text(json.dumps(figures, indent=2, allow_nan=True), encoding="utf-8")
+    return figures
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,82 @@
+"""The station's own overhead: the same lot on an ideal bench (no settling, no integration
+wait, no handler index time), against a minimal pyvisa script replaying its SCPI transactions.
+
+The station runs with its waits turned into no-ops (on an ideal bench every physics wait is
+zero, so a wait would only measure `time.sleep`). Its transactions during the lot are taken
+from the simulator's command log and replayed, in the same order, with plain pyvisa-py on a
+fresh ideal bench of the same seed: one write or one query per logged message, nothing else.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+from pathlib import Path
+
+import pyvisa
+
+from benchmarks.lot_run import run_lot
+from sim_instruments.bench import CommandRecord, SimBench, SimSettings
+
+
+def ideal_settings(settings: SimSettings) -> SimSettings:
+    return dataclasses.replace(settings, ideal=True, log_commands=True, handler_index_s=0.0)
+
+
+def station_on_ideal_bench(settings: SimSettings, sequence: Path, limits: Path, out: Path
+                           ) -> tuple[float, list[CommandRecord], int]:
+    """(station wall time, its transactions in that time, parts) on an ideal bench.
+
+    The window runs from the lot's start to the end of its last part, so the bench opening
+    before and the safe-state ramp after (with its deliberate pauses) are in neither figure.
+    """
+    run = run_lot(ideal_settings(settings), sequence, limits, out, sleep=lambda seconds: None)
+    end_wall = float(run.parts["END_T"].max())
+    records = sorted((r for r in run.command_log if run.start_wall <= r.wall_time <= end_wall),
+                     key=lambda r: r.wall_time)
+    return end_wall - run.start_wall, records, run.parts_count
+
+
+def replay(settings: SimSettings, records: list[CommandRecord]) -> float:
+    """Wall time of sending `records` with plain pyvisa to a fresh ideal bench."""
+    sim = SimBench(dataclasses.replace(ideal_settings(settings), log_commands=False))
+    with sim:
+        manager = pyvisa.ResourceManager("@py")
+        resources = {role: manager.open_resource(res, read_termination="\n", write_termination="\n",
+                                                 timeout=5000) for role, res in sim.resources.items()}
+        try:
+            start = time.perf_counter()
+            for record in records:
+                resource = resources[record.role]
+                if record.reply is None:
+                    resource.write(record.message)
+                else:
+                    resource.query(record.message)
+            return time.perf_counter() - start
+        finally:
+            for resource in resources.values():
+                resource.close()
+
+
+def replay_through_links(settings: SimSettings, records: list[CommandRecord]) -> float:
+    """The same replay through the station's own ScpiLink (drivers/scpi_link): how much of the
+    overhead is the link layer (retries, stale-reply checks) rather than the sequencer."""
+    from drivers.scpi_link import ScpiLink
+
+    sim = SimBench(dataclasses.replace(ideal_settings(settings), log_commands=False))
+    with sim:
+        links = {role: ScpiLink(role, res) for role, res in sim.resources.items()}
+        for link in links.values():
+            link.open()
+        try:
+            start = time.perf_counter()
+            for record in records:
+                link = links[record.role]
+                if record.reply is None:
+                    link.write(record.message)
+                else:
+                    link.query(record.message)
+            return time.perf_counter() - start
+        finally:
+            for link in links.values():
+                link.close()

@@ -1,0 +1,153 @@
+"""Scoring a dry-run datalog against the simulator's truth (sim_truth.csv).
+
+The true figures of a part are the station's own measurement math (station/measure) applied
+to the part's exact, noise-free offsets at the sequence's conditions (sim_instruments/model
+vos_true), so they share every definition with the measured ones (least-squares region
+slopes, end-point full range, crossover spread); what differs is noise and settling only.
+A misbin: the part's hard bin differs from the bin station/grading gives its true figures
+with the same limits. An escape: a part binned good whose true figures fail a limit of the
+grade it was binned under (or which truly has no contact).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from sim_instruments.model import vos_true
+from sim_instruments.population import PartTruth
+from station.grading import Result, check_value, contact_verdict, grade_part, limit_for
+from station.limit_tables import LimitTable
+from station.measure import aol_figures, cmrr_figures, psrr_figures
+from station.sequence import Sequence
+
+NOMINAL_SPAN_V = 10.0
+
+
+def truth_parts(path: Path) -> dict[str, PartTruth]:
+    """PartTruth records rebuilt from sim_truth.csv."""
+    table = pd.read_csv(path)
+    parts = {}
+    for index, row in table.iterrows():
+        parts[row["PART_ID"]] = PartTruth(
+            part_id=row["PART_ID"], index=int(index), defect=row["DEFECT"],
+            reseat_fixes=bool(row["RESEAT_FIXES"]), vos_low_v=row["VOS_LOW_V"], cm_step_v=row["CM_STEP_V"],
+            cmrr_low_vv=row["CMRR_LOW_VV"], cmrr_high_vv=row["CMRR_HIGH_VV"],
+            crossover_below_vplus_v=NOMINAL_SPAN_V / 2.0 - row["CROSSOVER_VCM_V"],
+            crossover_width_v=row["CROSSOVER_WIDTH_V"], aol_vv=row["AOL_VV"], psrr_vv=row["PSRR_VV"],
+            iq_a=row["IQ_A"], noise_v_rthz=row["NOISE_V_RTHZ"], flicker_v=row["FLICKER_V"],
+            tau_fast_s=row["TAU_FAST_S"], tau_slow_s=row["TAU_SLOW_S"],
+            thermal_v_per_v=row["THERMAL_V_PER_V"],
+            short_ohm=150.0 if row["DEFECT"] == "short" else math.inf)
+    return parts
+
+
+def true_contact(part: PartTruth) -> str:
+    if part.defect == "short":
+        return "short"
+    if part.defect == "open" and not part.reseat_fixes:
+        return "open"
+    return "ok"
+
+
+def true_results(part: PartTruth, sequence: Sequence, table: LimitTable) -> list[Result]:
+    """The part's exact figures, in the station's execution order (contact Iq left out)."""
+    span = sequence.span_v
+    bounds = table.region_bounds(span)
+    results: list[Result] = []
+    for step in sequence.tests:
+        if step.kind == "offset":
+            results.append(Result("vos", None, vos_true(part, 0.0, span), 0))
+        elif step.kind == "cm_sweep":
+            vcms = list(step.point_vcms(span))
+            figures = cmrr_figures(vcms, [vos_true(part, v, span) for v in vcms], bounds, table.region_kinds())
+            results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
+        elif step.kind == "gain":
+            figures = aol_figures(list(step.levels_v), [vos_true(part, 0.0, span, lv) for lv in step.levels_v])
+            results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
+        elif step.kind == "supply_rejection":
+            figures = psrr_figures(list(step.spans_v), [vos_true(part, 0.0, s) for s in step.spans_v])
+            results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
+        elif step.kind == "supply_current":
+            results.append(Result("iq", None, part.iq(span), 0))
+    return results
+
+
+def true_bin(part: PartTruth, sequence: Sequence, table: LimitTable) -> int:
+    contact = true_contact(part)
+    if contact != "ok":
+        return contact_verdict(contact, table).hard_bin
+    return grade_part(true_results(part, sequence, table), table).hard_bin
+
+
+@dataclass
+class Score:
+    parts: int                      # parts judged (tester faults left out)
+    misbins: int
+    escapes: int
+    errors: dict[str, float]        # RMS error vs truth: vos (V), cmrr slopes (V/V), dB figures
+
+    @property
+    def misbin_rate(self) -> float:
+        return self.misbins / self.parts if self.parts else math.nan
+
+
+def score_datalog(folder: Path, sequence: Sequence, table: LimitTable, only: set[str] | None = None) -> Score:
+    """Misbins, escapes and RMS errors of the lot in `folder` (optionally of the parts `only`)."""
+    truth = truth_parts(folder / "sim_truth.csv")
+    parts = pd.read_csv(folder / "parts.csv", dtype={"GRADE": str})
+    results = pd.read_csv(folder / "results.csv", dtype={"REGION": str})
+    if only is not None:
+        parts = parts[parts["PART_ID"].isin(only)]
+        results = results[results["PART_ID"].isin(only)]
+    judged = parts[parts["PASS"].notna()]
+    misbins = escapes = 0
+    expected: dict[str, dict[tuple[str, str], float]] = {}
+    for row in judged.itertuples():
+        part = truth[row.PART_ID]
+        if true_bin(part, sequence, table) != row.HARD_BIN:
+            misbins += 1
+        if row.PASS == 1 and _escaped(part, str(row.GRADE), sequence, table):
+            escapes += 1
+        if part.defect == "none":
+            expected[row.PART_ID] = {(r.param, r.region or ""): r.value
+                                     for r in true_results(part, sequence, table)}
+    return Score(len(judged), misbins, escapes, _errors(results, expected))
+
+
+def _escaped(part: PartTruth, grade_name: str, sequence: Sequence, table: LimitTable) -> bool:
+    if true_contact(part) != "ok":
+        return True
+    grade = table.grade(grade_name)
+    for result in true_results(part, sequence, table):
+        limit = limit_for(grade, result.param, result.region)
+        if limit is not None and not check_value(result.value, limit):
+            return True
+    return False
+
+
+ERROR_FIGURES = {"vos": ("vos", ""), "cmrr_slope_low": ("cmrr_slope", "low"),
+                 "cmrr_slope_high": ("cmrr_slope", "high"), "cmrr_db_low": ("cmrr", "low"),
+                 "cmrr_db_high": ("cmrr", "high"), "aol_db": ("aol", ""), "psrr_slope": ("psrr_slope", "")}
+
+
+def _errors(results: pd.DataFrame, expected: dict[str, dict[tuple[str, str], float]]) -> dict[str, float]:
+    measured = results[results["PART_ID"].isin(expected.keys())]
+    measured = measured.assign(REGION=measured["REGION"].fillna(""))
+    lookup = measured.set_index(["PART_ID", "PARAM", "REGION"])["RESULT"]
+    lookup = lookup[~lookup.index.duplicated()]
+    errors = {}
+    for name, key in ERROR_FIGURES.items():
+        diffs = []
+        for part_id, truth in expected.items():
+            where = (part_id, *key)
+            if key in truth and where in lookup.index:
+                diff = float(lookup[where]) - truth[key]
+                if math.isfinite(diff):
+                    diffs.append(diff)
+        errors[name] = float(np.sqrt(np.mean(np.square(diffs)))) if diffs else math.nan
+    return errors

@@ -7,7 +7,7 @@ at all, because it is out of the instrument's range or beyond the bench's safety
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Iterable, Sequence
 
 
 class InstrumentError(Exception):
@@ -78,3 +78,19 @@ class RequestRefused(Exception):
         if reason:
             text += f" ({reason})"
         super().__init__(text)
+
+
+def attempt_each(actions: Iterable[Callable[[], object]], failures: list[InstrumentError] | None = None) -> None:
+    """Run every action even if an earlier one fails; then raise the first failure, if any.
+
+    The way to a safe state: a lost reply on one command must not leave an output on.
+    `failures` may carry failures from earlier steps of the same sequence.
+    """
+    failures = list(failures or [])
+    for action in actions:
+        try:
+            action()
+        except InstrumentError as exc:
+            failures.append(exc)
+    if failures:
+        raise failures[0]

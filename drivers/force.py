@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from drivers.errors import InstrumentError
+from drivers.errors import InstrumentError, attempt_each
 from drivers.limits import require_within
 from drivers.scpi_link import ScpiLink
 from drivers.scpi_values import scpi_number
@@ -46,14 +46,7 @@ class ForceSource:
 
     def zero_and_off(self) -> None:
         """Level to 0 V and output off; both tried, the first failure raised at the end."""
-        failures: list[InstrumentError] = []
-        for action in (lambda: self.set_level(0.0), lambda: self.output(False), self._confirm_off):
-            try:
-                action()
-            except InstrumentError as exc:
-                failures.append(exc)
-        if failures:
-            raise failures[0]
+        attempt_each((lambda: self.set_level(0.0), lambda: self.output(False), self._confirm_off))
 
     def _confirm_off(self) -> None:
         # The query proves the writes before it arrived.

@@ -9,7 +9,7 @@ from __future__ import annotations
 import time
 from typing import Literal
 
-from drivers.errors import InstrumentError, RequestRefused
+from drivers.errors import InstrumentError, RequestRefused, attempt_each
 from drivers.limits import require_within
 from drivers.scpi_link import ScpiLink
 from drivers.scpi_values import scpi_number
@@ -83,7 +83,7 @@ class DualRailSupply:
         Every step is tried even if an earlier one fails (a lost reading must not leave the
         rails up); the first failure is raised at the end.
         """
-        failures: list[Exception] = []
+        failures: list[InstrumentError] = []
         try:
             start = self.rails()
         except InstrumentError as exc:
@@ -98,14 +98,8 @@ class DualRailSupply:
             except InstrumentError as exc:
                 failures.append(exc)
             time.sleep(step_delay_s)
-        for action in (lambda: self.set_rails(0.0, 0.0), lambda: self.outputs(False),
-                       self._confirm_off):
-            try:
-                action()
-            except InstrumentError as exc:
-                failures.append(exc)
-        if failures:
-            raise failures[0]
+        attempt_each((lambda: self.set_rails(0.0, 0.0), lambda: self.outputs(False), self._confirm_off),
+                     failures)
 
     def _confirm_off(self) -> None:
         # A query proves the instrument received the writes before it.

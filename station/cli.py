@@ -169,9 +169,15 @@ def _close_datalog(out: Path, stdf: bool, console: Console) -> None:
     write_manifest(out)
 
 
-def _inspect_resume(folder: Path, mode: str, sequence: Path, limits: Path, lot_id: str | None) -> ResumeState:
+def _inspect_resume(folder: Path, out: Path | None, force: bool, mode: str, sequence: Path, limits: Path,
+                    lot_id: str | None) -> ResumeState:
+    """What the interrupted lot in `folder` holds; refuses options that contradict a resume."""
     from station.lot_resume import inspect_resume
 
+    if out is not None and Path(out) != Path(folder):
+        raise Refused("--resume continues the lot in its own folder: leave out --out")
+    if force:
+        raise Refused("--resume and --force do not go together: --force starts a new lot")
     try:
         return inspect_resume(folder, mode=mode, sequence=sequence, limits=limits, lot_id=lot_id)
     except DatalogError as exc:
@@ -231,11 +237,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, seed: int, out: Path | N
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
     resume = None
     if resume_dir is not None:
-        if out is not None and Path(out) != Path(resume_dir):
-            raise Refused("--resume continues the lot in its own folder: leave out --out")
-        if force:
-            raise Refused("--resume and --force do not go together: --force starts a new lot")
-        resume = _inspect_resume(resume_dir, "dry-run", sequence_path, limits_path, lot_id)
+        resume = _inspect_resume(resume_dir, out, force, "dry-run", sequence_path, limits_path, lot_id)
         _resumed_sim_settings(ctx, resume, settings)
         user_bench = _bench_copy(resume_dir)
         out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
@@ -314,11 +316,7 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
     lot_id = _lot_id(lot_id)
     resume = None
     if resume_dir is not None:
-        if out is not None and Path(out) != Path(resume_dir):
-            raise Refused("--resume continues the lot in its own folder: leave out --out")
-        if force:
-            raise Refused("--resume and --force do not go together: --force starts a new lot")
-        resume = _inspect_resume(resume_dir, "run", sequence_path, limits_path, lot_id)
+        resume = _inspect_resume(resume_dir, out, force, "run", sequence_path, limits_path, lot_id)
         out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
         operator = operator or str(resume.header.get("operator", ""))
     if lot_id is None:

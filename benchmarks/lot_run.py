@@ -16,6 +16,7 @@ from pathlib import Path
 import pandas as pd
 import yaml
 
+from benchmarks.bench_process import BenchProcess
 from sim_instruments.bench import CommandRecord, SimBench, SimSettings
 from station.bench import open_bench
 from station.datalog import DatalogWriter
@@ -36,7 +37,7 @@ class LotRun:
     stats: ReadingStats
     transactions: int             # SCPI messages the station sent
     command_log: list[CommandRecord] = field(default_factory=list)
-    sim: SimBench | None = None   # stopped bench: its truth stays readable
+    sim: SimBench | None = None   # stopped bench (in process only): its truth stays readable
 
     @property
     def parts_count(self) -> int:
@@ -53,14 +54,18 @@ class LotRun:
 
 
 def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
-            sleep: Callable[[float], None] | None = None, lot_id: str = "BENCH") -> LotRun:
+            sleep: Callable[[float], None] | None = None, lot_id: str = "BENCH",
+            separate_process: bool = False) -> LotRun:
     """Run a lot. At a sim speed above 1 the station's waits are scaled to model time; its
     clock is not: its settling compares groups by their integration time (model seconds)
-    anyway, and its hard bound then stays in wall time, where its own overhead is."""
+    anyway, and its hard bound then stays in wall time, where its own overhead is.
+
+    `separate_process`: the simulated bench runs in a process of its own
+    (`benchmarks/bench_process.py`), as a real bench's instruments are other machines."""
     speed = settings.speed
     if sleep is None:
         sleep = time.sleep if speed == 1 else (lambda seconds: time.sleep(seconds / speed))
-    sim = SimBench(settings)
+    sim: SimBench | BenchProcess = BenchProcess(settings) if separate_process else SimBench(settings)
     with sim, tempfile.TemporaryDirectory() as temp:
         config = yaml.safe_load(sim.bench_config_text())
         bench_file = Path(temp) / "bench.yaml"
@@ -80,11 +85,11 @@ def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
             bench.close()
         if tally.stopped_because:
             raise RuntimeError(f"benchmark lot stopped: {tally.stopped_because}")
-        sim.write_truth(out / "sim_truth.csv")
+    sim.write_truth(out / "sim_truth.csv")  # after the stop: a bench process sends it then
     parts = pd.read_csv(out / "parts.csv")
     index_s = _index_times(parts)
     return LotRun(out, parts, elapsed, start_wall, index_s, runner.reader.stats, transactions,
-                  list(sim.command_log), sim)
+                  list(sim.command_log), sim if isinstance(sim, SimBench) else None)
 
 
 def _index_times(parts: pd.DataFrame) -> list[float]:

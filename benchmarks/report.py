@@ -50,8 +50,8 @@ def print_report(figures: dict, console: Console | None = None) -> None:
     detail.add_column("figure")
     detail.add_column("value")
     for key in ("test_s_per_part", "floor_s_per_part", "fixed_test_s_per_part", "fixed_wait_s",
-                "groups_per_condition", "timeouts_per_part", "replay_ms_per_transaction", "transactions",
-                "accuracy_parts", "misbins", "compare_parts", "summary_rows",
+                "groups_per_condition", "timeouts_per_part", "overhead_ratio_range",
+                "overhead_ratio_fastest_runs", "replay_ms_per_transaction", "transactions", "accuracy_parts", "misbins", "compare_parts", "summary_rows",
                 "summary_load_and_summarise_s", "summary_summarise_only_s"):
         if key in figures:
             detail.add_row(key, _fmt(figures[key]))

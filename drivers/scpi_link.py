@@ -53,6 +53,7 @@ class ScpiLink:
         self.resource = resource
         self.visa_library = visa_library
         self._timeout_s = float(timeout_s)
+        self._applied_timeout_ms: float | None = None  # what the open resource has now
         self.transactions = 0          # messages sent (writes and queries)
         self.retry = retry
         self.retries = 0               # transactions sent again after a failure
@@ -78,6 +79,7 @@ class ScpiLink:
         self._timeout_s = float(value)
         if self._instrument is not None:
             self._instrument.timeout = self._timeout_s * 1000.0
+            self._applied_timeout_ms = self._timeout_s * 1000.0
 
     def open(self) -> None:
         """Open the resource; InstrumentOpenError if the library or the resource cannot be opened."""
@@ -98,6 +100,7 @@ class ScpiLink:
             raise InstrumentOpenError(self.role, self.resource, None,
                                       f"cannot be opened: {exc}") from exc
         instrument.timeout = self._timeout_s * 1000.0
+        self._applied_timeout_ms = self._timeout_s * 1000.0
         instrument.write_termination = "\n"
         # Sockets and serial lines have no END signal: the newline ends every reply.
         upper = self.resource.upper()
@@ -324,14 +327,14 @@ class ScpiLink:
 
     @contextmanager
     def _timeout(self, instrument: Any, seconds: float) -> Iterator[None]:
-        if math.isclose(seconds, self._timeout_s):
-            yield
-            return
-        instrument.timeout = seconds * 1000.0
-        try:
-            yield
-        finally:
-            instrument.timeout = self._timeout_s * 1000.0
+        # Setting a pyvisa timeout costs client time on every call (a DMM's READ? carries its
+        # integration time in its timeout): apply it only when it changes. A write that runs
+        # under a longer timeout than the default only waits longer on a blocked send.
+        wanted_ms = seconds * 1000.0
+        if self._applied_timeout_ms is None or not math.isclose(wanted_ms, self._applied_timeout_ms):
+            instrument.timeout = wanted_ms
+            self._applied_timeout_ms = wanted_ms
+        yield
 
     def _translate(self, exc: Exception, command: str, wait_s: float) -> InstrumentError:
         if isinstance(exc, InstrumentError):

@@ -50,6 +50,19 @@ def station_on_ideal_bench(settings: SimSettings, sequence: Path, limits: Path, 
     return end_wall - run.start_wall, records, run.parts_count
 
 
+def _timed_replay(records: list[CommandRecord], endpoints: dict) -> float:
+    """Send each recorded message to its role's endpoint (a pyvisa resource or a ScpiLink: both
+    have write and query), as a write or a query as the station sent it; the wall time."""
+    start = time.perf_counter()
+    for record in records:
+        endpoint = endpoints[record.role]
+        if record.reply is None:
+            endpoint.write(record.message)
+        else:
+            endpoint.query(record.message)
+    return time.perf_counter() - start
+
+
 def replay(settings: SimSettings, records: list[CommandRecord], separate_process: bool = True) -> float:
     """Wall time of sending `records` with plain pyvisa to a fresh ideal bench."""
     sim = _replay_bench(settings, separate_process)
@@ -58,14 +71,7 @@ def replay(settings: SimSettings, records: list[CommandRecord], separate_process
         resources = {role: manager.open_resource(res, read_termination="\n", write_termination="\n",
                                                  timeout=5000) for role, res in sim.resources.items()}
         try:
-            start = time.perf_counter()
-            for record in records:
-                resource = resources[record.role]
-                if record.reply is None:
-                    resource.write(record.message)
-                else:
-                    resource.query(record.message)
-            return time.perf_counter() - start
+            return _timed_replay(records, resources)
         finally:
             for resource in resources.values():
                 resource.close()
@@ -83,14 +89,7 @@ def replay_through_links(settings: SimSettings, records: list[CommandRecord],
         for link in links.values():
             link.open()
         try:
-            start = time.perf_counter()
-            for record in records:
-                link = links[record.role]
-                if record.reply is None:
-                    link.write(record.message)
-                else:
-                    link.query(record.message)
-            return time.perf_counter() - start
+            return _timed_replay(records, links)
         finally:
             for link in links.values():
                 link.close()

@@ -23,6 +23,7 @@ from station.config_files import (
     parse_yaml_text,
     validate_model,
 )
+from station.measure import loop_gain
 from station.quantities import parse_quantity
 
 MAX_SITES = 4
@@ -130,7 +131,7 @@ class BenchConfig:
     @property
     def loop_gain(self) -> float:
         """Servo-loop gain from the DUT offset to the measurement node: 1 + Rf/Rs."""
-        return 1.0 + self.rf_ohm / self.rs_ohm
+        return loop_gain(self.rf_ohm, self.rs_ohm)
 
     @property
     def dmm_roles(self) -> list[str]:

@@ -24,6 +24,7 @@ from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
+from station.measure import vos_from_loop
 from station.sequence import Settle, TestStep
 from station.settle_rule import (
     group_tolerance,
@@ -135,7 +136,7 @@ class SiteReader:
                 for site in sites:
                     node.update(self._settle([site], settle, tolerance, begin))
         self.stats.settle_s += self.clock() - start
-        return {site: value / self.loop_gain for site, value in node.items()}
+        return {site: vos_from_loop(value, self.loop_gain) for site, value in node.items()}
 
     def _tolerance_node_v(self, sites: list[int], step: TestStep, settle: Settle, start: float) -> float:
         if not settle.auto:

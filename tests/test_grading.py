@@ -17,7 +17,7 @@ from station.grading import (
     limit_for,
 )
 from station.grading import (
-    tester_fault_verdict as fault_verdict,  # alias: pytest would collect test*
+    tester_fault_verdict as fault_verdict,  # short alias; pytest collects only test_* (pyproject)
 )
 from station.limit_tables import Limit, parse_limit_table
 

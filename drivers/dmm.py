@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 
 from drivers.errors import RequestRefused
-from drivers.limits import require_within
+from drivers.range_checks import require_within
 from drivers.retry import RETRYABLE
 from drivers.scpi_link import ScpiLink
 from drivers.scpi_values import scpi_number

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from drivers.errors import InstrumentError, attempt_each
-from drivers.limits import require_within
+from drivers.range_checks import require_within
 from drivers.scpi_link import ScpiLink
 from drivers.scpi_values import scpi_number
 

@@ -11,7 +11,7 @@ from collections.abc import Callable
 from typing import Protocol, runtime_checkable
 
 from drivers.errors import InstrumentBadReply, InstrumentError, RequestRefused
-from drivers.limits import require_site
+from drivers.range_checks import require_site
 from drivers.retry import RETRYABLE
 from drivers.scpi_link import ScpiLink
 

@@ -10,7 +10,7 @@ import time
 from typing import Literal
 
 from drivers.errors import InstrumentError, RequestRefused, attempt_each
-from drivers.limits import require_within
+from drivers.range_checks import require_within
 from drivers.scpi_link import ScpiLink
 from drivers.scpi_values import scpi_number
 

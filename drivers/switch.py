@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 
 from drivers.errors import InstrumentBadReply, InstrumentError, RequestRefused
-from drivers.limits import require_site
+from drivers.range_checks import require_site
 from drivers.scpi_link import ScpiLink
 
 MAX_SITES = 4

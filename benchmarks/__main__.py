@@ -24,9 +24,9 @@ from benchmarks.sizes import SIZES, Sizes
 from benchmarks.truth_score import score_datalog, truth_parts
 from sim_instruments.bench import SimSettings
 from sim_instruments.population import make_population
-from station.cli import DEMO_LIMITS, DEMO_SEQUENCE
-from station.limit_tables import load_limit_table
-from station.sequence import load_sequence
+from station.config.limit_tables import load_limit_table
+from station.config.sequence import load_sequence
+from station.demo import DEMO_LIMITS, DEMO_SEQUENCE
 
 SEED = 11
 # The timing lots and the overhead lot run the simulated bench in a process of its own
@@ -162,7 +162,7 @@ def datalog(sizes: Sizes, work: Path, source: Path) -> dict:
         rows = grow_datalog(source, work / "big", sizes.summary_rows)
         times = [summary_seconds(work / "big") for _ in range(sizes.repeats)]
     except ImportError as exc:  # the review summary is written concurrently
-        figures.update(summary_1m_rows_s=None, summary_missing=f"station.review_summary not usable: {exc}")
+        figures.update(summary_1m_rows_s=None, summary_missing=f"station.review.summary not usable: {exc}")
         return figures
     total = _median(t[0] for t in times)
     figures.update(summary_rows=rows, summary_load_and_summarise_s=total,

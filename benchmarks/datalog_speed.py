@@ -1,4 +1,4 @@
-"""Datalog throughput: rows per second through station.datalog.DatalogWriter, and the time to
+"""Datalog throughput: rows per second through station.datalog.writer.DatalogWriter, and the time to
 summarise a 1,000,000-row datalog with the review summary (station/review_summary).
 
 The big datalog is a real dry-run datalog repeated with new part ids (same rows, same
@@ -13,8 +13,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from station.datalog import DatalogWriter, PartRecord, ResultRow
-from station.test_catalog import TestDef
+from station.config.test_catalog import TestDef
+from station.datalog.writer import DatalogWriter, PartRecord, ResultRow
 
 ROWS_PER_PART = 40  # about what the demo sequence logs per good part
 
@@ -57,8 +57,8 @@ def grow_datalog(source: Path, target: Path, rows: int) -> int:
 
 def summary_seconds(folder: Path) -> tuple[float, float]:
     """(load + summarise, summarise alone) in seconds, with the review helper's code."""
-    from station.review_load import load_datalogs
-    from station.review_summary import summarise
+    from station.review.load import load_datalogs
+    from station.review.summary import summarise
 
     start = time.perf_counter()
     logs = load_datalogs([folder])

@@ -18,11 +18,11 @@ import yaml
 
 from benchmarks.bench_process import BenchProcess
 from sim_instruments.bench import CommandRecord, SimBench, SimSettings
-from station.bench import open_bench
-from station.datalog import DatalogWriter
-from station.runner import LotRunner, LotSettings
-from station.screen_plan import build_plan
-from station.site_readings import ReadingStats
+from station.config.plan import build_plan
+from station.datalog.writer import DatalogWriter
+from station.lot.bench import open_bench
+from station.lot.runner import LotRunner, LotSettings
+from station.lot.site_readings import ReadingStats
 
 
 @dataclass

@@ -33,9 +33,9 @@ from sim_instruments.model import (
     vos_true,
 )
 from sim_instruments.population import PartTruth
-from station.rail_points import rails_for
-from station.sequence import Sequence, TestStep
-from station.sweep_order import visit_order
+from station.config.rail_points import rails_for
+from station.config.sequence import Sequence, TestStep
+from station.lot.sweep_order import visit_order
 
 State = tuple[float, float, float]  # (V+, V-, Vout)
 

@@ -20,10 +20,10 @@ import pandas as pd
 
 from sim_instruments.model import vos_true
 from sim_instruments.population import PartTruth
-from station.grading import Result, check_value, contact_verdict, grade_part, limit_for
-from station.limit_tables import LimitTable
-from station.measure import aol_figures, cmrr_figures, psrr_figures
-from station.sequence import Sequence
+from station.config.limit_tables import LimitTable
+from station.config.sequence import Sequence
+from station.judge.grading import Result, check_value, contact_verdict, grade_part, limit_for
+from station.judge.measure import aol_figures, cmrr_figures, psrr_figures
 
 NOMINAL_SPAN_V = 10.0
 

@@ -5,7 +5,7 @@ takes the model time explicitly, so the model is deterministic given the seed an
 (the instruments pass their clock's time). All values are SI (V, A, s); node values are the
 loop measurement node, i.e. G times the input-referred error, G = 1 + Rf/Rs.
 
-Conventions (station/rail_points.py): DUT inputs sit at fixture ground, so the common-mode
+Conventions (station/config/rail_points.py): DUT inputs sit at fixture ground, so the common-mode
 voltage relative to the supply mid-point is VCM = -(V+ + V-)/2 and the span is S = V+ - V-.
 
 Module-level helpers for benchmarks that compute the physics floor:

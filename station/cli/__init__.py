@@ -1,0 +1,1 @@
+"""The `station` command: one module per command group; exit codes live in station.errors."""

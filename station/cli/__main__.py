@@ -1,0 +1,5 @@
+"""`python -m station.cli` runs the `station` command."""
+
+from station.cli.main import main
+
+main()

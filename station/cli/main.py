@@ -1,0 +1,375 @@
+"""The `station` command: screen lots on a bench, dry-run them on the simulated bench, review them.
+
+Exit codes scripts can rely on: 0 done; 2 refused input (a bad file or option: nothing was
+powered and nothing written); 3 the lot was stopped (instrument failure, Ctrl-C, SIGTERM:
+the bench was put in its safe state and the datalog holds every finished part); 1 the
+station itself failed (a bug, a full disk): also after the safe state, with one line saying why.
+"""
+
+from __future__ import annotations
+
+import signal
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import click
+import yaml
+from rich.console import Console
+
+from drivers.errors import InstrumentError, RequestRefused
+from station import __version__
+from station.config.files import ConfigError
+from station.datalog.resume import ResumeState
+from station.datalog.writer import DatalogError, DatalogWriter
+from station.demo import DEMO_LIMITS, DEMO_SEQUENCE
+from station.lot.stop_signals import LotInterrupted, raise_interrupted, signals_deferred
+
+EXIT_SOFTWARE = 1
+EXIT_REFUSED = 2
+EXIT_STOPPED = 3
+DEFAULT_MAX_FAULTS = 3
+
+
+class Refused(click.ClickException):
+    """Bad input: one clear line, exit 2, nothing powered."""
+
+    exit_code = EXIT_REFUSED
+
+
+class StationGroup(click.Group):
+    """Any error that is not a refused input still comes out as one line (exit 1), not a trace."""
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except (click.exceptions.Exit, click.ClickException, click.Abort, SystemExit):
+            raise
+        except KeyboardInterrupt:
+            click.echo("stopped by Ctrl-C", err=True)
+            sys.exit(EXIT_STOPPED)
+        except LotInterrupted as exc:
+            click.echo(str(exc), err=True)
+            sys.exit(EXIT_STOPPED)
+        except Exception as exc:
+            click.echo(f"station error: {type(exc).__name__}: {exc}", err=True)
+            sys.exit(EXIT_SOFTWARE)
+
+
+@click.group(cls=StationGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="station")
+def main() -> None:
+    """Screen precision op-amps on a bench of SCPI instruments, or dry-run on the simulated bench."""
+
+
+@dataclass(frozen=True)
+class LotJob:
+    """One lot to run: the files, where it is logged, and how it stops."""
+
+    bench_path: Path
+    sequence_path: Path
+    limits_path: Path
+    out: Path
+    lot_id: str
+    operator: str
+    mode: str
+    force: bool = False
+    expected_parts: int | None = None
+    stdf: bool = False
+    resume: ResumeState | None = None
+    max_faults: int = DEFAULT_MAX_FAULTS
+    extra_header: dict = field(default_factory=dict)
+
+
+def _run_lot(job: LotJob, console: Console, after: Callable[[Path], None] | None = None) -> int:
+    """Plan, open the bench, run the lot with progress, print the summary. Returns the exit code.
+
+    SIGTERM stops the lot the way Ctrl-C does; both, and any error, end in the safe state."""
+    previous = signal.signal(signal.SIGTERM, raise_interrupted)
+    try:
+        return _plan_and_run(job, console, after)
+    except (LotInterrupted, KeyboardInterrupt) as exc:
+        # Before the lot loop (opening the bench): nothing was powered yet.
+        _say(console, f"stopped before the lot started: {exc or 'Ctrl-C'}", "bold red")
+        return EXIT_STOPPED
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] | None) -> int:
+    from station.cli.lot_console import LotProgress, bin_summary, lot_line
+    from station.config.plan import build_plan
+    from station.lot.bench import open_bench
+    from station.lot.runner import LotRunner, LotSettings
+
+    try:
+        plan = build_plan(job.bench_path, job.sequence_path, job.limits_path)
+        writer = DatalogWriter(job.out, force=job.force, resume=job.resume)
+    except (ConfigError, DatalogError) as exc:
+        raise Refused(str(exc)) from None
+    try:
+        bench = open_bench(plan.bench)
+    except (InstrumentError, RequestRefused) as exc:
+        raise click.ClickException(f"cannot open the bench: {exc}") from None
+    if job.resume is not None:
+        _tell_resume(job.resume, console)
+    try:
+        settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
+                               max_faults=job.max_faults, extra_header=job.extra_header)
+        with LotProgress(console, job.expected_parts, job.lot_id) as progress:
+            runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
+                               resume=job.resume, tell=lambda text: _say(console, text, "yellow"))
+            tally = runner.run()
+        with signals_deferred():       # the end-of-lot files are written whole
+            if after is not None and tally.stop_code != EXIT_SOFTWARE:
+                after(job.out)
+            if tally.stop_code != EXIT_SOFTWARE:
+                _close_datalog(job.out, job.stdf, console)
+    finally:
+        bench.close()
+    for table in bin_summary(tally, plan.table):
+        console.print(table)
+    console.print(lot_line(tally))
+    _say(console, "safe state: " + "; ".join(runner.safe_state_log))
+    _say(console, f"datalog: {job.out}")
+    if tally.stopped_because:
+        _say(console, f"lot stopped: {tally.stopped_because}; bench in safe state", "bold red")
+        _say(console, f"resume it with: station {job.mode} --resume {job.out} ...")
+        return tally.stop_code or EXIT_STOPPED
+    return 0
+
+
+def _say(console: Console, text: str, style: str | None = None) -> None:
+    """Print text that may hold instrument replies and SCPI commands: no markup, no emoji
+    (rich would turn ':ZERO:' into an emoji and '[...]' into styles)."""
+    console.print(text, style=style, markup=False, emoji=False, highlight=False)
+
+
+def _tell_resume(state: ResumeState, console: Console) -> None:
+    for warning in state.warnings:
+        _say(console, f"resume: {warning}", "yellow")
+    done = len(state.done_ids)
+    _say(console, f"resuming lot {state.header.get('lot_id')}: {done} part(s) already logged"
+                  + (f"; retesting {', '.join(state.interrupted)}" if state.interrupted else ""))
+
+
+def _close_datalog(out: Path, stdf: bool, console: Console) -> None:
+    """End-of-lot files: the binary STDF if asked, then the manifest over everything."""
+    from station.datalog.manifest import write_manifest
+    from station.datalog.stdf_export import write_stdf
+
+    if stdf:
+        console.print(f"STDF V4: {write_stdf(out)}")
+    write_manifest(out)
+
+
+def _inspect_resume(folder: Path, out: Path | None, force: bool, mode: str, sequence: Path, limits: Path,
+                    lot_id: str | None) -> ResumeState:
+    """What the interrupted lot in `folder` holds; refuses options that contradict a resume."""
+    from station.datalog.resume import inspect_resume
+
+    if out is not None and Path(out) != Path(folder):
+        raise Refused("--resume continues the lot in its own folder: leave out --out")
+    if force:
+        raise Refused("--resume and --force do not go together: --force starts a new lot")
+    try:
+        return inspect_resume(folder, mode=mode, sequence=sequence, limits=limits, lot_id=lot_id)
+    except DatalogError as exc:
+        raise Refused(str(exc)) from None
+
+
+def _lot_id(value: str | None, option: str = "--lot") -> str | None:
+    if value is None:
+        return None
+    if not value.strip():
+        raise Refused(f"{option} must not be empty (give the lot id, e.g. --lot LOT-0042)")
+    if any(c in value for c in ",\n\r"):
+        raise Refused(f"{option} {value!r}: a lot id cannot hold commas or line breaks")
+    return value.strip()
+
+
+_MAX_FAULTS = click.option(
+    "--max-faults", type=click.IntRange(1, 1000), default=DEFAULT_MAX_FAULTS, show_default=True,
+    help="Faulted attempts in a row (instrument failures) before the lot stops.")
+_RESUME = click.option(
+    "--resume", "resume_dir", type=click.Path(path_type=Path), default=None,
+    help="Continue the interrupted lot logged in this folder (parts logged are not tested again).")
+
+# SimSettings fields a resumed dry run takes from lot.json, so it simulates the same lot.
+_SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_site")
+
+
+@main.command("dry-run")
+@click.option("--parts", type=click.IntRange(1, 100000), default=32, show_default=True, help="Parts in the simulated lot.")
+@click.option("--sites", type=click.IntRange(1, 4), default=4, show_default=True, help="Sites per handler index.")
+@click.option("--seed", type=int, default=1, show_default=True, help="Seed of the simulated population.")
+@click.option("--out", type=click.Path(path_type=Path), default=None, help="Datalog folder [default: datalogs/<lot>].")
+@click.option("--lot", "lot_id", default=None, help="Lot id [default: DEMO-<date>-<time>].")
+@click.option("--operator", default="demo", show_default=True)
+@click.option("--bench", "bench_path", type=click.Path(path_type=Path), default=None,
+              help="Bench config whose fixture and safety limits the simulated bench takes.")
+@click.option("--sequence", "sequence_path", type=click.Path(path_type=Path), default=DEMO_SEQUENCE,
+              help="Sequence file [default: the demo product's].")
+@click.option("--limits", "limits_path", type=click.Path(path_type=Path), default=DEMO_LIMITS,
+              help="Limit table [default: the demo product's].")
+@click.option("--speed", type=click.FloatRange(0.1, 1000), default=1.0, show_default=True,
+              help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
+@click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
+@click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
+@_RESUME
+@_MAX_FAULTS
+@click.pass_context
+def dry_run(ctx: click.Context, parts: int, sites: int, seed: int, out: Path | None, lot_id: str | None,
+            operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
+            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
+    """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
+    from sim_instruments.bench import SimBench, SimSettings
+
+    console = Console()
+    lot_id = _lot_id(lot_id)
+    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
+    user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
+    resume = None
+    if resume_dir is not None:
+        resume = _inspect_resume(resume_dir, out, force, "dry-run", sequence_path, limits_path, lot_id)
+        _resumed_sim_settings(ctx, resume, settings)
+        user_bench = _bench_copy(resume_dir)
+        out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
+    lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
+    out = out or Path("datalogs") / lot_id
+    extra = {"dry_run": {key: getattr(settings, key) for key in _SIM_KEYS}}
+    with SimBench(settings) as sim, tempfile.TemporaryDirectory() as temp:
+        sim.start()
+        config = yaml.safe_load(sim.bench_config_text())
+        if user_bench:
+            config.update({k: user_bench[k] for k in ("station", "fixture", "safety") if k in user_bench})
+        bench_file = Path(temp) / "bench.yaml"
+        header = "# Bench config of the simulated bench for this dry run (written by the station).\n"
+        bench_file.write_text(header + yaml.safe_dump(config, sort_keys=False), encoding="utf-8")
+        console.print(f"dry run: simulated bench on loopback, seed {settings.seed}, {settings.parts} parts, "
+                      f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
+        job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
+                     settings.parts, stdf, resume, max_faults, extra)
+        code = _run_lot(job, console, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"))
+    sys.exit(code)
+
+
+def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> None:
+    """The simulated lot of the folder, its handler starting after the parts already sorted."""
+    recorded = resume.header.get("dry_run")
+    if not isinstance(recorded, dict) or any(key not in recorded for key in _SIM_KEYS):
+        raise Refused(f"{resume.folder}/lot.json: no record of the simulated lot (dry_run); "
+                      "this dry run cannot be resumed")
+    for key in ("seed", "parts", "sites"):
+        given = ctx.get_parameter_source(key) is not click.core.ParameterSource.DEFAULT
+        if given and getattr(settings, key) != recorded[key]:
+            raise Refused(f"--{key} {getattr(settings, key)}: the lot in {resume.folder} was simulated with "
+                          f"--{key} {recorded[key]}; leave it out when resuming")
+    for key in _SIM_KEYS:
+        setattr(settings, key, recorded[key])
+    settings.skip_parts = resume.presented_before
+
+
+def _bench_copy(folder: Path) -> dict | None:
+    try:
+        data = yaml.safe_load((Path(folder) / "bench.yaml").read_text(encoding="utf-8"))
+    except (OSError, yaml.YAMLError):
+        return None
+    return data if isinstance(data, dict) else None
+
+
+def _read_bench_overrides(path: Path, settings) -> dict:
+    from station.config.bench_config import load_bench_config
+
+    try:
+        config = load_bench_config(path)
+    except ConfigError as exc:
+        raise Refused(str(exc)) from None
+    settings.sites = config.sites
+    settings.rf_ohm, settings.rs_ohm = config.rf_ohm, config.rs_ohm
+    settings.dmm_per_site = config.dmm_per_site
+    return yaml.safe_load(path.read_text(encoding="utf-8"))
+
+
+@main.command("run")
+@click.option("--bench", "bench_path", type=click.Path(path_type=Path), required=True, help="Bench config (YAML).")
+@click.option("--sequence", "sequence_path", type=click.Path(path_type=Path), required=True, help="Sequence (YAML).")
+@click.option("--limits", "limits_path", type=click.Path(path_type=Path), required=True, help="Limit table (YAML).")
+@click.option("--lot", "lot_id", default=None, help="Lot id (required unless --resume).")
+@click.option("--operator", default="", help="Operator name for the datalog.")
+@click.option("--out", type=click.Path(path_type=Path), default=None, help="Datalog folder (required unless --resume).")
+@click.option("--parts", "expected_parts", type=click.IntRange(1), default=None, help="Expected lot size, for the progress bar.")
+@click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
+@click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
+@_RESUME
+@_MAX_FAULTS
+def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
+        out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
+        max_faults: int) -> None:
+    """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
+    lot_id = _lot_id(lot_id)
+    resume = None
+    if resume_dir is not None:
+        resume = _inspect_resume(resume_dir, out, force, "run", sequence_path, limits_path, lot_id)
+        out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
+        operator = operator or str(resume.header.get("operator", ""))
+    if lot_id is None:
+        raise Refused("--lot is required (the lot id), unless --resume continues a lot")
+    if out is None:
+        raise Refused("--out is required (the datalog folder), unless --resume continues a lot")
+    job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
+                 stdf, resume, max_faults)
+    sys.exit(_run_lot(job, Console()))
+
+
+@main.group("sim")
+def sim_group() -> None:
+    """The simulated bench."""
+
+
+@sim_group.command("serve")
+@click.option("--seed", type=int, default=1, show_default=True)
+@click.option("--sites", type=click.IntRange(1, 4), default=4, show_default=True)
+@click.option("--parts", type=click.IntRange(1, 1000000), default=32, show_default=True)
+@click.option("--write-bench", type=click.Path(path_type=Path), default=None, help="Write a bench config for it here.")
+@click.option("--truth", type=click.Path(path_type=Path), default=None, help="Write sim_truth.csv here on exit.")
+@click.option("--host", default="127.0.0.1", show_default=True, help="Address to listen on (loopback unless given).")
+@click.option("--port", "base_port", type=click.IntRange(0, 65535), default=0, help="First port (0: any free ports).")
+@click.option("--speed", type=click.FloatRange(0.1, 1000), default=1.0, show_default=True)
+@click.option("--single-dmm", is_flag=True, help="One DMM behind the scanner instead of one per site.")
+@click.option("--fault", "faults", multiple=True, metavar="ROLE:KIND=VALUE",
+              help="Inject a fault, e.g. dmm1:latency=0.05, force:drop=100 (repeatable).")
+def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
+              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...]) -> None:
+    """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
+    from sim_instruments.bench import SimSettings
+    from sim_instruments.serve import parse_fault_option, serve_until_interrupted
+
+    settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
+                           dmm_per_site=not single_dmm)
+    parsed = []
+    for text in faults:
+        try:
+            parsed.append(parse_fault_option(text))
+        except ValueError as exc:
+            raise Refused(f"--fault {text}: {exc}") from None
+    serve_until_interrupted(settings, write_bench=write_bench, echo=click.echo, truth_path=truth,
+                            faults=parsed)
+
+
+def _register_datalog_tools() -> None:
+    """Commands that read datalogs only: convert and verify, summary, rebin, limits."""
+    from station.cli.datalog_commands import convert_command, verify_command
+    from station.cli.review_commands import limits_group, rebin_command, summary_command
+
+    for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
+        main.add_command(command)
+
+
+_register_datalog_tools()
+
+if __name__ == "__main__":
+    main()

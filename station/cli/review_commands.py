@@ -1,0 +1,244 @@
+"""Review commands of `station`: summary, rebin, and the limits group (check, show, diff, propose).
+
+Registered on the main `station` group by station/cli/main.py. Every error is one line, never a
+traceback, with exit code 2 (bad input: a folder that is not a datalog, a bad limit table,
+a file that cannot be written), as for the screening commands.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import click
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+from rich.table import Table
+
+from station.config.files import ConfigError
+from station.review.load import DatalogError, Datalogs, load_datalogs
+from station.review.units import fmt, fmt_share
+
+HEAD = "bold dark_cyan"
+
+
+class BadInput(click.ClickException):
+    """One clear line and exit code 2, like every refused input of `station`."""
+
+    exit_code = 2
+
+
+def _console() -> Console:
+    return Console(width=None if Console().is_terminal else 160)
+
+
+def _read(folders: tuple[Path, ...], console: Console) -> Datalogs:
+    """Read the folders, with a progress bar when there are several."""
+    try:
+        if len(folders) < 2:
+            return load_datalogs(list(folders))
+        with Progress(TextColumn("reading datalogs"), BarColumn(), MofNCompleteColumn(), console=console,
+                      transient=True) as progress:
+            task = progress.add_task("read", total=len(folders))
+            return load_datalogs(list(folders), progress=lambda _: progress.advance(task))
+    except DatalogError as exc:
+        raise BadInput(str(exc)) from None
+
+
+def _table(path: Path):
+    from station.config.limit_tables import load_limit_table
+
+    try:
+        return load_limit_table(path)
+    except ConfigError as exc:
+        raise BadInput(exc.one_line()) from None
+
+
+# ---- summary ----------------------------------------------------------------------------------
+
+@click.command("summary")
+@click.argument("datalogs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--by", type=click.Choice(["site", "lot", "station", "hour"]), default=None,
+              help="Add a yield table grouped this way.")
+@click.option("--csv", "csv_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write every figure to one tidy CSV (a 'section' column says which table).")
+@click.option("--html", "html_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write a self-contained HTML report with plots.")
+def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path | None,
+                    html_file: Path | None) -> None:
+    """End-of-shift summary of one or more datalog folders: yield, bins, sites, Cpk."""
+    from station.review.console import print_summary
+    from station.review.export import write_csv
+    from station.review.summary import summarise
+
+    console = _console()
+    logs = _read(datalogs, console)
+    summary = summarise(logs, by=by)
+    print_summary(summary, console)
+    try:
+        if csv_file is not None:
+            write_csv(summary, csv_file)
+            console.print(f"figures written to {csv_file}")
+        if html_file is not None:
+            from station.review.report import write_report
+
+            write_report(logs, summary, html_file)
+            console.print(f"report written to {html_file}")
+    except OSError as exc:
+        raise BadInput(f"cannot write: {exc}") from None
+
+
+# ---- rebin ------------------------------------------------------------------------------------
+
+@click.command("rebin")
+@click.argument("datalog", type=click.Path(path_type=Path))
+@click.option("--limits", "limits_file", required=True, type=click.Path(path_type=Path),
+              help="The limit table to re-grade with.")
+@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path), default=None,
+              help="Write the re-binned parts.csv (same columns) into this folder.")
+def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None) -> None:
+    """Re-grade and re-bin a datalog offline with another limit table; show what moves."""
+    from station.review.rebin import (
+        RebinError,
+        bin_comparison,
+        grade_yield,
+        move_matrix,
+        rebin,
+        write_parts_csv,
+    )
+
+    console = _console()
+    new = _table(limits_file)
+    logs = _read((datalog,), console)
+    try:
+        result = rebin(logs, new)
+    except RebinError as exc:
+        raise BadInput(str(exc)) from None
+    grades = list(dict.fromkeys([*logs.parts.loc[logs.parts["PASS"] == 1, "GRADE"].unique(),
+                                 *(g.name for g in new.grades)]))
+    before, after = grade_yield(result.before, grades), grade_yield(result.after, grades)
+    t = Table(title="Yield per grade (tester faults left out)", header_style=HEAD, title_justify="left")
+    for column in ("grade", "before", "after"):
+        t.add_column(column, justify="left" if column == "grade" else "right")
+    for g in [*grades, "all"]:
+        t.add_row(g, fmt_share(before[g]), fmt_share(after[g]))
+    console.print(t)
+    names = {**logs.bin_names("hard_bins"), **{n: b.name for n, b in new.hard_bins.items()}}
+    soft_names = {**logs.bin_names("soft_bins"), **{n: b.name for n, b in new.soft_bins.items()}}
+    for column, title, label in (("HARD_BIN", "Hard bins", names), ("SOFT_BIN", "Soft bins", soft_names)):
+        frame = bin_comparison(result, column)
+        t = Table(title=title, header_style=HEAD, title_justify="left")
+        for c in ("bin", "name", "before", "after", "change"):
+            t.add_column(c, justify="left" if c in ("bin", "name") else "right")
+        for row in frame.itertuples():
+            t.add_row(str(row.bin), label.get(int(row.bin), ""), str(row.before), str(row.after), f"{row.change:+d}")
+        console.print(t)
+    for column, title in (("HARD_BIN", "Moves between hard bins (rows: from, columns: to)"),
+                          ("SOFT_BIN", "Moves between soft bins (rows: from, columns: to)")):
+        matrix = move_matrix(result, column)
+        t = Table(title=title, header_style=HEAD, title_justify="left")
+        t.add_column("from \\ to")
+        for c in matrix.columns:
+            t.add_column(str(c), justify="right")
+        for index, row in matrix.iterrows():
+            t.add_row(str(index), *[("" if v == 0 else str(v)) if i != index else f"[dim]{v}[/]"
+                                    for i, v in row.items()])
+        console.print(t)
+    console.print(f"{result.moved()} of {len(result.after)} parts change bin.")
+    for note in result.notes:
+        console.print(f"note: {note}")
+    if out_dir is not None:
+        try:
+            target = write_parts_csv(result, datalog, out_dir, new)
+        except OSError as exc:
+            raise BadInput(f"cannot write into {out_dir}: {exc}") from None
+        console.print(f"re-binned parts written to {target}")
+
+
+# ---- limits -----------------------------------------------------------------------------------
+
+@click.group("limits")
+def limits_group() -> None:
+    """Check, show, compare and propose limit tables."""
+
+
+@limits_group.command("check")
+@click.argument("file", type=click.Path(path_type=Path))
+def limits_check(file: Path) -> None:
+    """Load a limit table: OK with a one-line summary, or the problem (exit 1)."""
+    from station.review.limit_tools import check_summary
+
+    click.echo(check_summary(_table(file)))
+
+
+@limits_group.command("show")
+@click.argument("file", type=click.Path(path_type=Path))
+@click.option("--grade", default=None, help="Show this grade only.")
+def limits_show(file: Path, grade: str | None) -> None:
+    """A limit table in readable units, per grade and region."""
+    from station.review.limit_tools import show_tables
+
+    table = _table(file)
+    try:
+        tables = show_tables(table, grade)
+    except KeyError as exc:
+        raise BadInput(str(exc.args[0])) from None
+    console = _console()
+    console.print(f"{table.product}: {table.note}")
+    for t in tables:
+        console.print(t)
+
+
+@limits_group.command("diff")
+@click.argument("old", type=click.Path(path_type=Path))
+@click.argument("new", type=click.Path(path_type=Path))
+def limits_diff(old: Path, new: Path) -> None:
+    """What changed from OLD to NEW: limits added, removed, loosened, tightened; bins; regions."""
+    from station.review.limit_tools import diff_table, diff_tables
+
+    changes = diff_tables(_table(old), _table(new))
+    console = _console()
+    if not changes:
+        console.print("no changes")
+        return
+    console.print(diff_table(changes))
+
+
+@limits_group.command("propose")
+@click.argument("datalog", type=click.Path(path_type=Path))
+@click.option("--product", required=True, help="Product name of the proposed table.")
+@click.option("--sigma", "sigma_k", type=float, default=4.0, show_default=True,
+              help="Limits this many sigma from the mean.")
+@click.option("--out", "out_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write the proposed table (YAML) here; else it is printed.")
+def limits_propose(datalog: Path, product: str, sigma_k: float, out_file: Path | None) -> None:
+    """Propose a one-grade limit table from characterisation data, with its predicted yield."""
+    from station.review.propose import ProposeError, propose
+
+    console = _console()
+    logs = _read((datalog,), console)
+    try:
+        text, _table_obj, proposals, per_limit, overall = propose(logs, product, sigma_k)
+    except ProposeError as exc:
+        raise BadInput(str(exc)) from None
+    t = Table(title=f"Proposed limits at {sigma_k:g} sigma (typical = mean + 1 sigma)", header_style=HEAD,
+              title_justify="left")
+    for column in ("parameter", "region", "n", "typical", "low", "high", "yield", "how"):
+        t.add_column(column, justify="left" if column in ("parameter", "region", "how") else "right")
+    yields = {(r.param, r.region): r._6 for r in per_limit.itertuples()}
+    for p in proposals:
+        t.add_row(p.param, p.region, str(p.count), fmt(p.typical, p.units, with_unit=True),
+                  "" if p.low is None else fmt(p.low, p.units, with_unit=True),
+                  "" if p.high is None else fmt(p.high, p.units, with_unit=True),
+                  fmt_share(yields.get((p.param, p.region), math.nan)), p.method)
+    console.print(t)
+    console.print(f"Predicted yield with every limit: {fmt_share(overall)} "
+                  "(of the parts with a pass/fail indication in the datalog)")
+    if out_file is None:
+        click.echo(text)
+        return
+    try:
+        out_file.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise BadInput(f"cannot write {out_file}: {exc}") from None
+    console.print(f"proposed table written to {out_file}")

@@ -1,0 +1,236 @@
+"""The bench config: which instrument fills each role, the fixture constants, the safety limits.
+
+`load_bench_config(path)` reads the YAML file, checks it, and returns a `BenchConfig` of plain
+floats in SI units. Every problem is one line: ``file:line: key: what is wrong (how to fix)``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Annotated, Any
+
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
+from pydantic_core import PydanticCustomError
+from pyvisa.rname import InvalidResourceName, parse_resource_name
+
+from drivers.registry import DRIVERS, known_drivers
+from station.config.files import (
+    ConfigError,
+    YamlDocument,
+    load_yaml_file,
+    parse_yaml_text,
+    validate_model,
+)
+from station.config.quantities import parse_quantity
+from station.judge.measure import loop_gain
+
+MAX_SITES = 4
+MAX_RAIL_LIMIT_V = 30.0
+LINE_FREQUENCIES_HZ = (50.0, 60.0)
+DEFAULT_TIMEOUT_S = 5.0
+
+
+def _quantity(unit: str) -> Callable[[Any], float]:
+    def convert(value: Any) -> float:
+        try:
+            return parse_quantity(value, unit)
+        except ValueError as exc:
+            # A custom error keeps pydantic's "Value error, " prefix out of the message.
+            raise PydanticCustomError("bad_quantity", "{text}",
+                                      {"text": str(exc)}) from None
+    return convert
+
+
+def _resource(value: Any) -> str:
+    if not isinstance(value, str):
+        raise PydanticCustomError("bad_resource", "{text}", {"text": (
+            f"{value!r} is not a VISA resource string "
+            "(write it like 'TCPIP0::192.0.2.10::5025::SOCKET' or 'GPIB0::5::INSTR')")})
+    try:
+        parse_resource_name(value)
+    except InvalidResourceName as exc:
+        raise PydanticCustomError("bad_resource", "{text}", {"text": (
+            f"not a VISA resource string: {exc} "
+            "(write it like 'TCPIP0::192.0.2.10::5025::SOCKET' or 'GPIB0::5::INSTR')")}) from None
+    return value
+
+
+Seconds = Annotated[float, BeforeValidator(_quantity("s"))]
+Ohms = Annotated[float, BeforeValidator(_quantity("Ohm"))]
+Hertz = Annotated[float, BeforeValidator(_quantity("Hz"))]
+Volts = Annotated[float, BeforeValidator(_quantity("V"))]
+Amps = Annotated[float, BeforeValidator(_quantity("A"))]
+Resource = Annotated[str, BeforeValidator(_resource)]
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class InstrumentEntry(_Strict):
+    resource: Resource
+    driver: str
+    timeout: Seconds = Field(DEFAULT_TIMEOUT_S, gt=0)
+    idn: str | None = None
+
+
+class InstrumentsSection(_Strict):
+    supply: InstrumentEntry
+    force: InstrumentEntry
+    dmm: list[InstrumentEntry] = Field(min_length=1)
+    switch: InstrumentEntry
+    handler: InstrumentEntry | None = None
+
+
+class FixtureSection(_Strict):
+    rf: Ohms = Field(gt=0)
+    rs: Ohms = Field(gt=0)
+    sites: int = Field(strict=True)
+    line_frequency: Hertz
+    dmm_per_site: bool | None = Field(None, strict=True)
+
+
+class SafetySection(_Strict):
+    max_rail: Volts
+    current_compliance: Amps
+
+
+class BenchFile(_Strict):
+    station: str = ""
+    visa_library: str = "@py"
+    instruments: InstrumentsSection
+    fixture: FixtureSection
+    safety: SafetySection
+
+
+@dataclass(frozen=True)
+class InstrumentConfig:
+    role: str          # "supply", "force", "dmm1".., "switch", "handler"
+    resource: str
+    driver: str
+    timeout_s: float
+    idn: str | None = None
+
+
+@dataclass(frozen=True)
+class BenchConfig:
+    station: str
+    visa_library: str
+    instruments: dict[str, InstrumentConfig]
+    rf_ohm: float
+    rs_ohm: float
+    sites: int
+    line_hz: float
+    dmm_per_site: bool
+    max_rail_v: float
+    compliance_a: float
+    source: Path | None = None
+
+    @property
+    def loop_gain(self) -> float:
+        """Servo-loop gain from the DUT offset to the measurement node: 1 + Rf/Rs."""
+        return loop_gain(self.rf_ohm, self.rs_ohm)
+
+    @property
+    def dmm_roles(self) -> list[str]:
+        return [role for role in self.instruments if role.startswith("dmm")]
+
+    @property
+    def has_handler(self) -> bool:
+        return "handler" in self.instruments
+
+
+def load_bench_config(path: str | Path) -> BenchConfig:
+    doc = load_yaml_file(path)
+    return _build(doc, Path(path))
+
+
+def parse_bench_config(text: str, file: str = "<text>") -> BenchConfig:
+    return _build(parse_yaml_text(text, file), None)
+
+
+def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
+    model = validate_model(doc, BenchFile)
+    _check_drivers(doc, model.instruments)
+    fixture, safety = model.fixture, model.safety
+    _check_limits(doc, fixture, safety)
+    if fixture.line_frequency not in LINE_FREQUENCIES_HZ:
+        raise doc.error(["fixture", "line_frequency"],
+                        f"{fixture.line_frequency:g} Hz is not a power-line frequency",
+                        "write 50 Hz or 60 Hz")
+    dmm_per_site = _check_dmm_count(doc, model)
+    instruments: dict[str, InstrumentConfig] = {}
+
+    def add(role: str, entry: InstrumentEntry) -> None:
+        instruments[role] = InstrumentConfig(role, entry.resource, entry.driver,
+                                             entry.timeout, entry.idn)
+
+    add("supply", model.instruments.supply)
+    add("force", model.instruments.force)
+    for number, entry in enumerate(model.instruments.dmm, start=1):
+        add(f"dmm{number}", entry)
+    add("switch", model.instruments.switch)
+    if model.instruments.handler is not None:
+        add("handler", model.instruments.handler)
+    station = model.station or (source.stem if source is not None else "bench")
+    return BenchConfig(station=station, visa_library=model.visa_library, instruments=instruments,
+                       rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
+                       line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
+                       max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
+                       source=source)
+
+
+def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:
+    if not 1 <= fixture.sites <= MAX_SITES:
+        raise doc.error(["fixture", "sites"], f"{fixture.sites} sites: the fixture has 1 to {MAX_SITES}",
+                        f"write a number from 1 to {MAX_SITES}")
+    if not 0 < safety.max_rail <= MAX_RAIL_LIMIT_V:
+        raise doc.error(["safety", "max_rail"],
+                        f"{safety.max_rail:g} V is outside (0, {MAX_RAIL_LIMIT_V:g} V]",
+                        "give the largest rail magnitude the parts may see, e.g. '12 V'")
+    if safety.current_compliance <= 0:
+        raise doc.error(["safety", "current_compliance"], "must be above 0 A",
+                        "give the supply's current limit, e.g. '20 mA'")
+
+
+def _check_drivers(doc: YamlDocument, section: InstrumentsSection) -> None:
+    entries: list[tuple[list[str | int], str, InstrumentEntry]] = [
+        (["instruments", "supply"], "supply", section.supply),
+        (["instruments", "force"], "force", section.force),
+        *((["instruments", "dmm", i], "dmm", e) for i, e in enumerate(section.dmm)),
+        (["instruments", "switch"], "switch", section.switch),
+    ]
+    if section.handler is not None:
+        entries.append((["instruments", "handler"], "handler", section.handler))
+    for path, role, entry in entries:
+        known = DRIVERS.get(entry.driver)
+        if known is None or known.role != role:
+            what = "unknown driver" if known is None else f"driver for a {known.role}, not a {role}"
+            raise doc.error([*path, "driver"], f"{entry.driver!r}: {what}",
+                            f"use {' or '.join(known_drivers(role))}")
+
+
+def _check_dmm_count(doc: YamlDocument, model: BenchFile) -> bool:
+    count, sites = len(model.instruments.dmm), model.fixture.sites
+    wanted = model.fixture.dmm_per_site
+    if wanted is None:
+        if count not in (1, sites):
+            raise doc.error(["instruments", "dmm"],
+                            f"{count} DMMs fit neither one per site ({sites}) nor one with the scanner",
+                            f"list {sites} DMMs, or one")
+        return count == sites
+    if wanted and count != sites:
+        raise doc.error(["instruments", "dmm"],
+                        f"{count} DMMs listed, but dmm_per_site is true and the fixture has {sites} sites",
+                        f"list {sites} DMMs, or set dmm_per_site: false and list one")
+    if not wanted and count != 1:
+        raise doc.error(["instruments", "dmm"],
+                        f"{count} DMMs listed, but dmm_per_site is false (one DMM with the scanner)",
+                        "list one DMM, or set dmm_per_site: true and list one per site")
+    return wanted
+
+
+__all__ = ["BenchConfig", "ConfigError", "InstrumentConfig", "load_bench_config",
+           "parse_bench_config"]

@@ -1,0 +1,65 @@
+"""Everything a lot needs decided before the first part: sequence, limits, bench, test numbers.
+
+`build_plan` loads and cross-checks the three files and refuses, before anything is powered,
+a sequence that the bench's safety limits or the limit table's regions do not allow.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from station.config.bench_config import BenchConfig, load_bench_config
+from station.config.files import ConfigError
+from station.config.limit_tables import LimitTable, load_limit_table
+from station.config.sequence import (
+    Sequence,
+    TestStep,
+    check_bench_safety,
+    check_region_coverage,
+    load_sequence,
+)
+from station.config.test_catalog import TestDef, catalog, step_tests
+
+
+@dataclass(frozen=True)
+class ScreenPlan:
+    sequence: Sequence
+    table: LimitTable
+    bench: BenchConfig
+    bounds: dict[str, tuple[float, float]]     # region -> VCM range at the sequence's span
+    regions: list[tuple[str, str]]              # (name, kind), low to high
+    tests: list[TestDef]                        # every loggable test, in execution order
+    sequence_path: Path
+    limits_path: Path
+    bench_path: Path
+
+    test_order: dict[int, int]                  # test number -> position in execution order
+
+    def order_of(self, test_num: int) -> int:
+        """Position of a test number in execution order (unknown numbers last)."""
+        return self.test_order.get(test_num, len(self.test_order))
+
+    def step_tests(self, step: TestStep) -> tuple[list[TestDef], list[TestDef]]:
+        return step_tests(step, self.sequence, self.regions, self.bounds)
+
+
+def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> ScreenPlan:
+    """Load and cross-check; any problem is a ConfigError naming the file and what to fix."""
+    bench = load_bench_config(bench_path)
+    sequence = load_sequence(sequence_path)
+    table = load_limit_table(limits_path)
+    if sequence.product != table.product:
+        raise ConfigError(sequence.source, f"sequence is for product {sequence.product!r} but the "
+                          f"limit table {table.source} is for {table.product!r}",
+                          hint="pick the limit table of the same product")
+    check_bench_safety(sequence, bench.max_rail_v, bench.compliance_a)
+    bounds = table.region_bounds(sequence.span_v)
+    kinds = table.region_kinds()
+    check_region_coverage(sequence, bounds, kinds)
+    regions = [(r.name, r.kind) for r in table.regions]
+    tests = catalog(sequence, regions, bounds)
+    return ScreenPlan(sequence=sequence, table=table, bench=bench, bounds=bounds, regions=regions,
+                      tests=tests, test_order={t.test_num: i for i, t in enumerate(tests)},
+                      sequence_path=Path(sequence_path),
+                      limits_path=Path(limits_path), bench_path=Path(bench_path))

@@ -1,0 +1,1 @@
+"""The datalog folder: its format, the writer, resume, the manifest, STDF records and export."""

@@ -1,0 +1,1 @@
+"""Pure functions: readings to figures (measure), figures to verdicts, grades and bins (grading)."""

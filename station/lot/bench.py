@@ -1,0 +1,187 @@
+"""Opening the bench a config describes, and bringing it to a safe state on the way out.
+
+`open_bench(config)` opens every link, checks each instrument is the one the config expects,
+puts everything in a known state (reset, outputs off, relays open) and returns a `Bench`
+holding one typed driver per role. `Bench.safe_state()` is the one way out: force source to
+zero and off, rails down and off, relays open, each step tried whatever happened before.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import cast
+
+import click
+
+from drivers.dmm import LoopDmm
+from drivers.errors import InstrumentError, InstrumentOpenError
+from drivers.force import ForceSource
+from drivers.handler import ManualHandler, PartHandler
+from drivers.registry import DriverSettings, build_driver
+from drivers.scpi_link import ScpiLink
+from drivers.supply import DualRailSupply
+from drivers.switch import FixtureSwitch
+from station.config.bench_config import BenchConfig
+from station.lot.stop_signals import LotInterrupted
+
+# Defaults until the sequence configures the DMMs: 1 NPLC, 10 V range, autozero on.
+_DEFAULT_NPLC, _DEFAULT_RANGE_V = 1.0, 10.0
+
+
+@dataclass
+class Bench:
+    config: BenchConfig
+    supply: DualRailSupply
+    force: ForceSource
+    dmms: list[LoopDmm]
+    switch: FixtureSwitch
+    handler: PartHandler
+
+    def all_links(self) -> dict[str, ScpiLink]:
+        """role -> link of every SCPI instrument (a manual handler has none)."""
+        links = {"supply": self.supply.link, "force": self.force.link}
+        links.update({dmm.link.role: dmm.link for dmm in self.dmms})
+        links["switch"] = self.switch.link
+        handler_link = getattr(self.handler, "link", None)
+        if isinstance(handler_link, ScpiLink):
+            links["handler"] = handler_link
+        return links
+
+    def identities(self) -> dict[str, str]:
+        """role -> *IDN? reply; the manual handler is named as such."""
+        found = {role: link.identify() for role, link in self.all_links().items()}
+        if "handler" not in found:
+            found["handler"] = "manual: the operator seats and sorts the parts"
+        return found
+
+    def safe_state(self) -> list[str]:
+        """Force to 0 V and off, then both rails down and off, then every relay open.
+
+        Each step is tried even if an earlier one failed; a step that still fails after the
+        link's own retries is tried once more after reconnecting. Returns one line per step:
+        "role: action: ok" or "role: action: FAILED: why".
+        """
+        log: list[str] = []
+
+        def open_relays() -> None:
+            self.switch.open_all()
+            self.switch.confirm_open()
+
+        steps: list[tuple[ScpiLink, str, Callable[[], None]]] = [
+            (self.force.link, "level 0 V and output off", self.force.zero_and_off),
+            (self.supply.link, "rails ramped to 0 V and outputs off", self.supply.ramp_down_and_off),
+            (self.switch.link, "all relays open", open_relays),
+        ]
+        for link, action, step in steps:
+            log.append(f"{link.role}: {action}: {_attempt(link, step)}")
+        return log
+
+    def close(self) -> None:
+        for link in self.all_links().values():
+            link.close()
+
+    def __enter__(self) -> Bench:
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        try:
+            self.safe_state()
+        finally:
+            self.close()
+
+
+def _attempt(link: ScpiLink, step: Callable[[], None]) -> str:
+    """Run one safe-state step; after any instrument failure reconnect and run it once more."""
+    retried_before = link.retries
+    try:
+        step()
+    except InstrumentError as first:
+        try:
+            link.reconnect()
+            step()
+            return f"ok after reconnecting ({first})"
+        except Exception as again:  # the way out must never stop half-way
+            return f"FAILED: {again}"
+    except Exception as exc:
+        return f"FAILED: {exc}"
+    retried = link.retries - retried_before
+    return f"ok after {retried} retried transaction(s)" if retried else "ok"
+
+
+def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
+               tell: Callable[[str], None] | None = None) -> Bench:
+    """Open, identify and reset every instrument of `config`; raise InstrumentOpenError if one fails."""
+    settings = DriverSettings(max_rail_v=config.max_rail_v, compliance_a=config.compliance_a,
+                              line_hz=config.line_hz, sites=config.sites)
+    links: dict[str, ScpiLink] = {}
+    try:
+        for role, instrument in config.instruments.items():
+            link = ScpiLink(role, instrument.resource, config.visa_library, instrument.timeout_s)
+            link.open()
+            links[role] = link
+            _check_identity(link, instrument.idn)
+        drivers = {role: build_driver(config.instruments[role].driver, link, settings)
+                   for role, link in links.items()}
+        handler = cast(PartHandler, drivers["handler"]) if "handler" in drivers else ManualHandler(
+            config.sites, ask or _prompt, tell or click.echo)
+        bench = Bench(config=config,
+                      supply=cast(DualRailSupply, drivers["supply"]),
+                      force=cast(ForceSource, drivers["force"]),
+                      dmms=[cast(LoopDmm, drivers[role]) for role in config.dmm_roles],
+                      switch=cast(FixtureSwitch, drivers["switch"]),
+                      handler=handler)
+    except BaseException:
+        for link in links.values():
+            link.close()
+        raise
+    try:
+        _known_state_tried_twice(bench)
+    except BaseException:
+        bench.safe_state()
+        bench.close()
+        raise
+    return bench
+
+
+def _known_state_tried_twice(bench: Bench) -> None:
+    # An error left in a queue means a setting may not have taken: the whole known state is
+    # sent again once (every command of it is harmless to repeat) before giving up.
+    try:
+        _known_state(bench)
+    except InstrumentError:
+        _known_state(bench)
+
+
+def _check_identity(link: ScpiLink, expected: str | None) -> None:
+    try:
+        reply = link.identify()
+    except InstrumentError as exc:
+        raise InstrumentOpenError(link.role, link.resource, "*IDN?",
+                                  f"got no identification: {exc.detail}") from exc
+    if expected is not None and expected not in reply:
+        raise InstrumentOpenError(link.role, link.resource, "*IDN?",
+                                  f"answered {reply!r}, which does not contain {expected!r} "
+                                  "(wrong instrument at this address, or fix idn in the bench config)")
+
+
+def _known_state(bench: Bench) -> None:
+    for link in bench.all_links().values():
+        link.reset()
+    bench.force.configure()
+    bench.supply.outputs(False)
+    bench.supply.set_rails(0.0, 0.0)
+    bench.supply.configure()
+    bench.switch.open_all()
+    for dmm in bench.dmms:
+        dmm.configure(_DEFAULT_NPLC, _DEFAULT_RANGE_V, autozero=True)
+    for link in bench.all_links().values():
+        link.check_errors()
+
+
+def _prompt(text: str) -> str:
+    try:
+        return str(click.prompt(text, default="", show_default=False))
+    except click.Abort:
+        # The operator's input closed (end of file, or Ctrl-D/Ctrl-C at the prompt): stop the lot.
+        raise LotInterrupted("operator input ended (no more part ids)") from None

@@ -1,0 +1,208 @@
+"""Loop readings of every live site at one bench condition, after settling.
+
+The sequencer changes a source, then asks for the offsets of the live sites here. With one
+DMM per site, the DMMs integrate at the same time: one READ? per DMM, each on a worker
+thread, so the integrations overlap and no reply waits behind another instrument's. With a
+single DMM behind the scanner, the sites are read one after another (while one is read,
+the others go on settling).
+
+Settling (see station/sequence.Settle): a fixed wait, or adaptive. Adaptive settling reads
+reading groups back to back from the source change on (the DMM integrates while the loop
+settles, so waiting costs no extra time) and stops, site by site, when a group is stable:
+- absolute: it agrees with the group before within `stable_within` (RTI volts);
+- auto: the residual an exponential approach predicts for it is below `sigmas` times its
+  noise, the noise measured by the station itself on the first condition that needs it.
+Every adaptive condition is bounded by `max`.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import weakref
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+
+from station.config.sequence import Settle, TestStep
+from station.judge.measure import vos_from_loop
+from station.lot.settle_rule import (
+    group_tolerance,
+    mean,
+    noise_from_samples,
+    predicted_residual,
+    typical_noise,
+)
+
+NOISE_SAMPLES = 16  # back-to-back samples per site that measure the noise at an NPLC
+
+
+@dataclass
+class ReadingStats:
+    """What the settling cost, for progress and benchmarks."""
+
+    conditions: int = 0
+    readings: int = 0          # reading groups taken (all sites of a group count once)
+    settle_s: float = 0.0
+    timeouts: int = 0          # conditions where adaptive settling hit its maximum
+    noise_checks: int = 0      # noise measurements (one per NPLC per lot)
+
+
+@dataclass
+class _Track:
+    """One site's reading groups at the current condition: (start time, mean) of each."""
+
+    groups: list[tuple[float, float]] = field(default_factory=list)
+    done: bool = False
+
+    @property
+    def value(self) -> float:
+        return self.groups[-1][1] if self.groups else math.nan
+
+
+@dataclass
+class SiteReader:
+    dmms: list            # LoopDmm drivers (one per site, or one with the scanner)
+    switch: object        # FixtureSwitch, for the scanner
+    loop_gain: float
+    dmm_per_site: bool
+    dmm_range_v: float
+    autozero: bool
+    sleep: Callable[[float], None] = time.sleep
+    clock: Callable[[], float] = time.monotonic
+    stats: ReadingStats = field(default_factory=ReadingStats)
+    noise_rti: dict[float, float] = field(default_factory=dict)  # NPLC -> RMS of one sample, V RTI
+    _config: tuple | None = None
+    _pool: ThreadPoolExecutor | None = None
+
+    def configure(self, nplc: float, samples: int) -> None:
+        """Configure every DMM for this integration time, only when it changes (saves round trips)."""
+        wanted = (nplc, samples)
+        if self._config == wanted:
+            return
+        for dmm in self.dmms:
+            dmm.configure(nplc=nplc, range_v=self.dmm_range_v, autozero=self.autozero, samples=samples)
+        self._config = wanted
+
+    def _group_time_s(self) -> float:
+        return self.dmms[0].integration_time_s
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=False)
+            self._pool = None
+
+    # --- reading groups ---
+    def _group(self, sites: list[int]) -> dict[int, list[float]]:
+        """One reading group (SAMPle:COUNt samples) per site, in volts at the loop node."""
+        if not self.dmm_per_site:
+            values = {}
+            for site in sites:
+                self.switch.route_to_dmm(site)
+                values[site] = self.dmms[0].read_samples()
+            return values
+        if len(sites) == 1:
+            return {sites[0]: self.dmms[sites[0] - 1].read_samples()}
+        pool = self._workers()
+        futures = {site: pool.submit(self.dmms[site - 1].read_samples) for site in sites}
+        return {site: future.result() for site, future in futures.items()}
+
+    def _workers(self) -> ThreadPoolExecutor:
+        if self._pool is None:
+            self._pool = ThreadPoolExecutor(max_workers=len(self.dmms), thread_name_prefix="dmm-read")
+            weakref.finalize(self, self._pool.shutdown, wait=False)
+        return self._pool
+
+    # --- one condition ---
+    def read(self, sites: list[int], step: TestStep, settle: Settle | None = None) -> dict[int, float]:
+        """Settle, then return the offset (V, referred to the input) of each site; inf = over-range."""
+        if not sites:
+            return {}
+        settle = settle or step.settle
+        self.configure(step.nplc, step.average)
+        self.stats.conditions += 1
+        start = self.clock()
+        if not settle.adaptive:
+            self.sleep(settle.wait_s or 0.0)
+            node = {site: mean(v) for site, v in self._group(sites).items()}
+            self.stats.readings += 1
+        else:
+            tolerance = self._tolerance_node_v(sites, step, settle, start)
+            begin = self.clock()  # after a noise measurement, the condition is settled anew
+            if self.dmm_per_site:
+                node = self._settle(sites, settle, tolerance, begin)
+            else:  # one DMM: each site in turn, the later ones settling meanwhile
+                node = {}
+                for site in sites:
+                    node.update(self._settle([site], settle, tolerance, begin))
+        self.stats.settle_s += self.clock() - start
+        return {site: vos_from_loop(value, self.loop_gain) for site, value in node.items()}
+
+    def _tolerance_node_v(self, sites: list[int], step: TestStep, settle: Settle, start: float) -> float:
+        if not settle.auto:
+            return (settle.stable_rti_v or 0.0) * self.loop_gain
+        sigma = self.noise_rti.get(step.nplc)
+        if sigma is None:
+            sigma = self._measure_noise(sites, step, settle, start)
+        assert settle.sigmas is not None
+        return group_tolerance(settle.sigmas, sigma, step.average) * self.loop_gain
+
+    def _measure_noise(self, sites: list[int], step: TestStep, settle: Settle, start: float) -> float:
+        """Noise of one sample at this NPLC, from back-to-back samples at a settled condition.
+
+        The first time an NPLC is needed the tolerance is unknown, so the condition waits its
+        maximum, then every site takes NOISE_SAMPLES samples; the median over sites counts.
+        """
+        self.sleep(max(0.0, settle.max_s - (self.clock() - start)))
+        self.configure(step.nplc, NOISE_SAMPLES)
+        groups = self._group(sites if self.dmm_per_site else sites[:1])
+        self.configure(step.nplc, step.average)
+        self.stats.noise_checks += 1
+        sigma = typical_noise(noise_from_samples(v) for v in groups.values())
+        if sigma is None:  # no site could be read (all overloaded): no tolerance to learn yet
+            return math.inf
+        self.noise_rti[step.nplc] = sigma / self.loop_gain
+        return self.noise_rti[step.nplc]
+
+    def _settle(self, sites: list[int], settle: Settle, tolerance: float, start: float) -> dict[int, float]:
+        """Read groups back to back until every site's group is stable; site by site, the
+        first stable group is its value. Bounded by `settle.max_s` from `start`."""
+        if settle.min_s > 0:
+            self.sleep(max(0.0, settle.min_s - (self.clock() - start)))
+        tracks = {site: _Track() for site in sites}
+        while True:
+            pending = [s for s in sites if not tracks[s].done]
+            now = self.clock()
+            groups = self._group(pending)
+            self.stats.readings += 1
+            for site, values in groups.items():
+                track = tracks[site]
+                track.groups.append((now, mean(values)))
+                track.done = self._stable(track.groups, settle, tolerance)
+            if all(t.done for t in tracks.values()):
+                break
+            if self.clock() - start >= settle.max_s:
+                self.stats.timeouts += 1
+                break
+        return {site: track.value for site, track in tracks.items()}
+
+    def _stable(self, groups: list[tuple[float, float]], settle: Settle, tolerance: float) -> bool:
+        """Is the latest group settled? Needs one group before it to compare with."""
+        if len(groups) < 2:
+            return False
+        t_last, last = groups[-1]
+        if not settle.auto:
+            previous = groups[-2][1]
+            if math.isinf(last) or math.isinf(previous):
+                return True  # an overloaded site cannot settle; it must not hold the other sites up
+            return abs(last - previous) <= tolerance
+        # The residual predicted from the group before, or (less noisy, where the loop's fast
+        # transient has left it) from the one before that. Groups are window averages at
+        # least one integration apart, however fast the replies come back.
+        spacing = self._group_time_s()
+        for lag in (1, 2)[:len(groups) - 1]:
+            t_ref, ref = groups[-1 - lag]
+            interval = max(t_last - t_ref, lag * spacing)
+            if predicted_residual(last, ref, interval, settle.tail_s) <= tolerance:
+                return True
+        return False

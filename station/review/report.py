@@ -1,0 +1,223 @@
+"""The end-of-shift report as one self-contained HTML file (plots inlined as base64 PNG).
+
+Opens in any browser with no network and no other files: lot header, yield, bin Pareto,
+yield by site and by hour, a histogram per parameter and region with each grade's limits,
+and Vos-versus-common-mode curves of a sample of parts with the regions shaded.
+"""
+
+from __future__ import annotations
+
+import math
+from datetime import UTC, datetime
+from pathlib import Path
+
+import jinja2
+import numpy as np
+import pandas as pd
+
+from station import __version__
+from station.config.parameters import LIMITABLE
+from station.review.limits import datalog_table, limits_in_force
+from station.review.load import Datalogs
+from station.review.plots import histogram, pareto_plot, vos_curves, yield_bars
+from station.review.summary import Summary, group_key, yield_by
+from station.review.units import display_unit, fmt, fmt_share
+
+CURVE_SAMPLE = 30
+CURVE_SEED = 401
+
+_TEMPLATE = jinja2.Template("""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<title>Shift review: {{ title }}</title>
+<style>
+ body { font-family: "DejaVu Sans", Verdana, sans-serif; margin: 0; background: #f6f5f1; color: #22303c; }
+ header { background: #22303c; color: #f6f5f1; padding: 18px 28px; }
+ header h1 { margin: 0 0 4px 0; font-size: 22px; letter-spacing: 0.5px; }
+ header p { margin: 0; color: #c9d3da; font-size: 13px; }
+ main { padding: 10px 28px 40px 28px; max-width: 1200px; }
+ h2 { border-bottom: 2px solid #c7a15a; padding-bottom: 3px; font-size: 17px; margin-top: 28px; }
+ table { border-collapse: collapse; font-size: 12px; margin: 8px 0; background: #ffffff; }
+ th { background: #dfe6ea; text-align: left; padding: 4px 8px; }
+ td { padding: 3px 8px; border-top: 1px solid #e6e6e6; }
+ td.n { text-align: right; font-variant-numeric: tabular-nums; }
+ .cards { display: flex; flex-wrap: wrap; gap: 10px; margin: 12px 0; }
+ .card { background: #ffffff; border-left: 4px solid #3f7d6e; padding: 8px 14px; min-width: 130px; }
+ .card b { display: block; font-size: 20px; }
+ .card span { font-size: 11px; color: #5b6770; }
+ .grid { display: flex; flex-wrap: wrap; gap: 14px; }
+ figure { background: #ffffff; margin: 0; padding: 8px; border: 1px solid #e1ddd3; }
+ figure img { display: block; max-width: 100%; }
+ figcaption { font-size: 12px; color: #44525c; padding-top: 4px; }
+ .flag { color: #a4471f; font-weight: bold; }
+ .note { font-size: 12px; color: #5b6770; }
+</style></head>
+<body>
+<header><h1>Shift review: {{ title }}</h1>
+<p>{{ subtitle }}</p></header>
+<main>
+<h2>Lot header</h2>
+<table>{% for k, v in header %}<tr><th>{{ k }}</th><td>{{ v }}</td></tr>{% endfor %}</table>
+{% if instruments %}<table><tr><th>role</th><th>instrument (*IDN?)</th></tr>
+{% for k, v in instruments %}<tr><td>{{ k }}</td><td>{{ v }}</td></tr>{% endfor %}</table>{% endif %}
+
+<h2>Yield</h2>
+<div class="cards">{% for k, v in cards %}<div class="card"><b>{{ v }}</b><span>{{ k }}</span></div>{% endfor %}</div>
+{{ grades }}
+<p class="note">Yield = good / (good + failed); tester faults carry no pass/fail and are left out.
+Bin shares are of all parts tested.</p>
+
+<h2>Bins</h2>
+<div class="grid"><div>{{ hard_bins }}</div><div>{{ soft_bins }}</div></div>
+{{ figure(pareto) }}
+
+<h2>Sites and time</h2>
+{{ sites }}
+<p class="{{ 'flag' if site_flag else 'note' }}">{{ site_test }}</p>
+<div class="grid">{{ figure(site_plot) }}{{ figure(hour_plot) }}</div>
+
+<h2>Parameter distributions</h2>
+<p class="note">Over-range (non-finite) results are counted but left out of mean, sigma and the plots.
+Dashed lines: limits of each grade. Cpk = min(USL - mu, mu - LSL) / (3 sigma).</p>
+{{ stats }}
+{{ cpk }}
+<div class="grid">{% for h in histograms %}{{ figure(h) }}{% endfor %}</div>
+
+<h2>Offset versus common mode</h2>
+{{ figure(curves) }}
+{% for n in notes %}<p class="note">note: {{ n }}</p>{% endfor %}
+<p class="note">Generated {{ generated }} by ampscreen-station {{ version }} from {{ folders }}.</p>
+</main></body></html>
+""", autoescape=True)
+
+
+def _figure(item: tuple[str, str] | None) -> str:
+    if item is None:
+        return ""
+    title, data = item
+    safe = jinja2.filters.escape(title)
+    return jinja2.utils.markupsafe.Markup(
+        f'<figure><img alt="{safe}" src="data:image/png;base64,{data}"><figcaption>{safe}</figcaption></figure>')
+
+
+def _html_table(frame: pd.DataFrame, formats: dict[str, object] | None = None) -> str:
+    formats = formats or {}
+    head = "".join(f"<th>{jinja2.filters.escape(str(c))}</th>" for c in frame.columns)
+    rows = []
+    for values in frame.itertuples(index=False):
+        cells = []
+        for column, value in zip(frame.columns, values, strict=True):
+            formatter = formats.get(column)
+            text = formatter(value) if callable(formatter) else _plain(value)
+            numeric = isinstance(value, int | float | np.integer | np.floating) and not isinstance(value, bool)
+            cells.append(f'<td class="{"n" if numeric else ""}">{jinja2.filters.escape(text)}</td>')
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    return jinja2.utils.markupsafe.Markup(f"<table><tr>{head}</tr>{''.join(rows)}</table>")
+
+
+def _plain(value: object) -> str:
+    if isinstance(value, float | np.floating):
+        return "" if math.isnan(value) else f"{value:.4g}"
+    if isinstance(value, bool | np.bool_):
+        return "yes" if value else "no"
+    return str(value)
+
+
+def write_report(logs: Datalogs, summary: Summary, path: str | Path) -> Path:
+    lot = logs.lots[0]
+    title = ", ".join(sorted({str(x.get("lot_id", "?")) for x in logs.lots}))
+    subtitle = f"{lot.get('product', '?')} on {lot.get('station', '?')}, {len(logs.folders)} datalog(s), " \
+               f"{summary.overview['parts tested']} parts tested"
+    hour_table = yield_by(logs.parts, group_key(logs, "hour"), "hour", summary.grade_order)
+    html = _TEMPLATE.render(
+        title=title, subtitle=subtitle, header=_header(logs), instruments=list((lot.get("instruments") or {}).items()),
+        cards=_cards(summary), grades=_html_table(summary.grades, {"share": fmt_share}),
+        hard_bins=_html_table(summary.hard_bins, {"share": fmt_share}),
+        soft_bins=_html_table(summary.soft_bins, {"share": fmt_share}),
+        pareto=("Failure Pareto by soft bin", pareto_plot(summary.pareto)),
+        sites=_html_table(summary.sites, {"yield": fmt_share, "p_vs_rest": lambda v: _plain(v)}),
+        site_test=f"Site difference: {summary.site_test.describe()}", site_flag=summary.site_test.flagged,
+        site_plot=("Yield by site", yield_bars(summary.sites, "site", "Yield by site")),
+        hour_plot=("Yield by hour (UTC)", yield_bars(hour_table, "hour", "Yield by hour (UTC)")),
+        stats=_stats_table(summary), cpk=_cpk_table(summary), histograms=_histograms(logs, summary),
+        curves=_curves(logs), notes=summary.notes + [f"limits for Cpk and plots: {summary.limits_source}"],
+        generated=datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC"), version=__version__,
+        folders=", ".join(str(f) for f in logs.folders), figure=_figure)
+    target = Path(path)
+    target.write_text(html, encoding="utf-8")
+    return target
+
+
+def _header(logs: Datalogs) -> list[tuple[str, str]]:
+    lot = logs.lots[0]
+    rows = [(k, str(lot.get(k, ""))) for k in ("lot_id", "product", "station", "operator", "mode",
+                                               "start_time", "end_time", "sites", "span_v")]
+    for key, label in (("sequence", "program (sequence)"), ("limits", "limit table"), ("bench", "bench")):
+        info = lot.get(key) or {}
+        rows.append((label, f"{info.get('source', '')}  sha256 {info.get('sha256', '')}"))
+    software = lot.get("software") or {}
+    rows.append(("software", f"{software.get('name', '')} {software.get('version', '')}"))
+    if len(logs.lots) > 1:
+        rows.append(("other lots", ", ".join(str(x.get("lot_id")) for x in logs.lots[1:])))
+    return rows
+
+
+def _cards(summary: Summary) -> list[tuple[str, str]]:
+    o = summary.overview
+    cards = [("parts tested", str(o["parts tested"])), ("yield", fmt_share(float(o["yield"]))),
+             ("final yield", fmt_share(float(o["final yield"])))]
+    cards += [(f"grade {r.grade}", fmt_share(r.share)) for r in summary.grades.itertuples()]
+    cards += [("tester faults", str(o["tester faults"])), ("retests", str(o["retests"])),
+              ("parts per hour", _plain(float(o["parts per hour"])))]
+    return cards
+
+
+def _stats_table(summary: Summary) -> str:
+    frame = summary.stats.copy()
+    for column in ("mean", "sigma", "min", "p1", "p50", "p99", "max"):
+        frame[column] = [fmt(v, u) for v, u in zip(frame[column], frame["units"], strict=True)]
+    frame["units"] = [display_unit(u)[1] for u in frame["units"]]
+    return _html_table(frame)
+
+
+def _cpk_table(summary: Summary) -> str:
+    frame = summary.cpk.copy()
+    units = dict(zip(zip(summary.stats["param"], summary.stats["region"], strict=True), summary.stats["units"],
+                     strict=True))
+    unit = [units.get((p, r), "") for p, r in zip(frame["param"], frame["region"], strict=True)]
+    for column in ("lsl", "usl", "mean", "sigma"):
+        frame[column] = [fmt(v, u) for v, u in zip(frame[column], unit, strict=True)]
+    frame.insert(3, "unit", [display_unit(u)[1] for u in unit])
+    return _html_table(frame, {"cpk": lambda v: _plain(v)})
+
+
+def _histograms(logs: Datalogs, summary: Summary) -> list[tuple[str, str]]:
+    limits, _, _ = limits_in_force(logs)
+    results = logs.results
+    plots = []
+    rows = results[results["PARAM"].isin(list(LIMITABLE))]
+    groups = {key: frame for key, frame in rows.groupby([rows["PARAM"].astype(str), rows["REGION"].astype(str)])}
+    for stat in summary.stats.itertuples():
+        if stat.param not in LIMITABLE or (stat.param, stat.region) not in groups:
+            continue
+        values = groups[(stat.param, stat.region)]["RESULT"].to_numpy()
+        finite = values[np.isfinite(values)]
+        own = limits[(limits["PARAM"] == stat.param) & (limits["REGION"] == stat.region)]
+        title = f"{stat.param} {stat.region}".strip()
+        plots.append((f"Histogram: {title}", histogram(finite, stat.units, title, own, int(stat.over_range))))
+    return plots
+
+
+def _curves(logs: Datalogs) -> tuple[str, str] | None:
+    raw = logs.results[logs.results["PARAM"] == "vos_cm"]
+    if raw.empty:
+        return None
+    parts = raw["PART_SEQ"].unique()
+    rng = np.random.default_rng(CURVE_SEED)
+    chosen = set(rng.choice(parts, size=min(CURVE_SAMPLE, len(parts)), replace=False).tolist())
+    sample = raw[raw["PART_SEQ"].isin(chosen)]
+    curves = {int(seq): (g["VCM"].to_numpy(), g["RESULT"].to_numpy()) for seq, g in sample.groupby("PART_SEQ")}
+    table = datalog_table(logs, 0)
+    span = logs.lots[0].get("span_v")
+    regions = table.region_bounds(float(span)) if table is not None and isinstance(span, int | float) else {}
+    title = f"Vos versus common mode, {len(curves)} of {len(parts)} parts"
+    return title, vos_curves(curves, regions, title)

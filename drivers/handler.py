@@ -128,12 +128,16 @@ class ManualHandler:
 
     role = "handler"
 
-    def __init__(self, sites: int, ask: Callable[[str], str], tell: Callable[[str], None]) -> None:
+    def __init__(self, sites: int, ask: Callable[[str], str], tell: Callable[[str], None],
+                 seated: Callable[[int, str | None], None] | None = None) -> None:
         if not 1 <= sites <= 4:
             raise RequestRefused(self.role, "sites", sites, "1 to 4")
         self._sites = sites
         self._ask = ask
         self._tell = tell
+        # Told of every seat the operator confirms (site, id or None for empty): the
+        # simulated bench puts a part of its lot there; a real socket needs nothing.
+        self._seated = seated
         self._tested: set[str] = set()
         self._current: list[str | None] = []
 
@@ -163,7 +167,10 @@ class ManualHandler:
                 self._tell(problem)
             if site == 1 and answer == "":
                 return None
-            index.append(None if answer == EMPTY_SITE else answer)
+            part = None if answer == EMPTY_SITE else answer
+            if self._seated is not None:
+                self._seated(site, part)
+            index.append(part)
         return index
 
     def _prompt(self, site: int) -> str:
@@ -183,8 +190,9 @@ class ManualHandler:
                     "if the site is left empty.")
         if answer == EMPTY_SITE:
             return None
-        if "," in answer:
-            return f"Site {site}: {answer!r} contains a comma; part ids cannot."
+        if not PART_ID.fullmatch(answer):
+            return (f"Site {site}: {answer!r} is not a part id: use letters, digits and _ . : / + - "
+                    "(no spaces or commas).")
         if answer in index:
             return f"Site {site}: {answer!r} is already seated in another site of this index."
         if answer in self._tested:

@@ -13,7 +13,7 @@ from sim_instruments.instrument import Instrument
 from sim_instruments.model import BenchModel
 from sim_instruments.population import PartTruth
 from sim_instruments.scpi_errors import ScpiError
-from sim_instruments.scpi_params import Arguments, integer
+from sim_instruments.scpi_params import Arguments, QuotedString, Token, integer
 from sim_instruments.scpi_tree import CommandTree
 
 EMPTY_SITE = "-"
@@ -49,6 +49,9 @@ class Handler(Instrument):
                  query_args=Arguments([integer(1, 99)]))
         tree.add("HANDler:RESeat", self._reseat, args=Arguments([site]))
         tree.add("HANDler:COUNt", query=lambda: str(len(self.parts) - self.next_part))
+        # A manual socket on the simulated bench: the operator seats the next part of the
+        # simulated lot by hand, under the id they typed ("-" empties the site).
+        tree.add("SIMulation:SEAT", self._seat_by_hand, args=Arguments([site, _quoted]))
 
     def _next(self) -> str:
         unbinned = [p for p in self.in_sites if p is not None and p.binned_hard_bin is None]
@@ -75,6 +78,27 @@ class Handler(Instrument):
                 self.in_sites[k - 1] = part
                 self.model.seat(k, part, now, contact=part is not None and part.defect != "open")
 
+    def _seat_by_hand(self, site: int, part_id: str) -> None:
+        with self.model.lock:
+            powered = self.model.op.powered[site - 1]
+        if powered:
+            raise ScpiError(-221, f"site {site} is powered: turn the rails off before seating a part")
+        if part_id == EMPTY_SITE:
+            self._seat_one(site, None)
+            return
+        if self.next_part >= len(self.parts):
+            raise ScpiError(-221, "the simulated lot has no part left to seat")
+        part = self.parts[self.next_part]
+        self.next_part += 1
+        part.part_id = part_id
+        self._seat_one(site, part)
+
+    def _seat_one(self, site: int, part: PartTruth | None) -> None:
+        with self.model.lock:
+            self.in_sites[site - 1] = part
+            self.model.seat(site, part, self.clock.now(),
+                            contact=part is not None and part.defect != "open")
+
     def _bin(self, site: int, hard_bin: int) -> None:
         part = self.in_sites[site - 1]
         if part is None:
@@ -95,3 +119,9 @@ class Handler(Instrument):
         contact = was_contacted or (part.defect == "open" and part.reseat_fixes)
         with self.model.lock:
             self.model.seat(site, part, self.clock.now(), contact=contact)
+
+
+def _quoted(token: Token) -> str:
+    if not isinstance(token, QuotedString) or not token.text.strip():
+        raise ScpiError(-104, "a part id in quotes was expected")
+    return token.text.strip()

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
@@ -28,6 +30,14 @@ class LotProgress:
 
     def __exit__(self, *exc) -> None:
         self.progress.stop()
+
+    def ask(self, question: Callable[[], str]) -> str:
+        """Ask the operator with the live bar stopped, so the typed answer gets a line of its own."""
+        self.progress.stop()
+        try:
+            return question()
+        finally:
+            self.progress.start()
 
     def update(self, record: PartRecord, tally: LotTally) -> None:
         self.progress.update(self.task, completed=tally.parts, yield_pct=tally.yield_pct,

@@ -82,6 +82,8 @@ class LotJob:
     resume: ResumeState | None = None
     max_faults: int = DEFAULT_MAX_FAULTS
     extra_header: dict = field(default_factory=dict)
+    # Manual socket: told of every seat the operator confirms (the simulated bench seats a part).
+    seated: Callable[[int, str | None], None] | None = None
 
 
 def _run_lot(job: LotJob, console: Console, after: Callable[[Path], None] | None = None) -> int:
@@ -105,13 +107,15 @@ def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] |
     from station.lot.bench import open_bench
     from station.lot.runner import LotRunner, LotSettings
 
+    live: list[LotProgress] = []   # the progress bar, once it runs: paused at every prompt
+
     try:
         plan = build_plan(job.bench_path, job.sequence_path, job.limits_path)
         writer = DatalogWriter(job.out, force=job.force, resume=job.resume)
     except (ConfigError, DatalogError) as exc:
         raise Refused(str(exc)) from None
     try:
-        bench = open_bench(plan.bench)
+        bench = open_bench(plan.bench, ask=lambda text: _ask_operator(text, live), seated=job.seated)
     except (InstrumentError, RequestRefused) as exc:
         raise click.ClickException(f"cannot open the bench: {exc}") from None
     if job.resume is not None:
@@ -120,6 +124,7 @@ def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] |
         settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
                                max_faults=job.max_faults, extra_header=job.extra_header)
         with LotProgress(console, job.expected_parts, job.lot_id) as progress:
+            live.append(progress)
             runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"))
             tally = runner.run()
@@ -140,6 +145,14 @@ def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] |
         _say(console, f"resume it with: station {job.mode} --resume {job.out} ...")
         return tally.stop_code or EXIT_STOPPED
     return 0
+
+
+def _ask_operator(text: str, live: list) -> str:
+    from station.lot.bench import ask_operator
+
+    if live:
+        return str(live[0].ask(lambda: ask_operator(text)))
+    return ask_operator(text)
 
 
 def _say(console: Console, text: str, style: str | None = None) -> None:
@@ -205,6 +218,8 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @main.command("dry-run")
 @click.option("--parts", type=click.IntRange(1, 100000), default=32, show_default=True, help="Parts in the simulated lot.")
 @click.option("--sites", type=click.IntRange(1, 4), default=4, show_default=True, help="Sites per handler index.")
+@click.option("--manual", is_flag=True,
+              help="No handler: the operator seats each part and types its id at the prompt (manual socket).")
 @click.option("--seed", type=int, default=1, show_default=True, help="Seed of the simulated population.")
 @click.option("--out", type=click.Path(path_type=Path), default=None, help="Datalog folder [default: datalogs/<lot>].")
 @click.option("--lot", "lot_id", default=None, help="Lot id [default: DEMO-<date>-<time>].")
@@ -222,7 +237,7 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @_RESUME
 @_MAX_FAULTS
 @click.pass_context
-def dry_run(ctx: click.Context, parts: int, sites: int, seed: int, out: Path | None, lot_id: str | None,
+def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
             force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
@@ -246,15 +261,40 @@ def dry_run(ctx: click.Context, parts: int, sites: int, seed: int, out: Path | N
         config = yaml.safe_load(sim.bench_config_text())
         if user_bench:
             config.update({k: user_bench[k] for k in ("station", "fixture", "safety") if k in user_bench})
+        seat = _SimulatedSocket(sim.resources["handler"]) if manual else None
+        if seat is not None:
+            del config["instruments"]["handler"]
         bench_file = Path(temp) / "bench.yaml"
         header = "# Bench config of the simulated bench for this dry run (written by the station).\n"
         bench_file.write_text(header + yaml.safe_dump(config, sort_keys=False), encoding="utf-8")
         console.print(f"dry run: simulated bench on loopback, seed {settings.seed}, {settings.parts} parts, "
                       f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
-                     settings.parts, stdf, resume, max_faults, extra)
-        code = _run_lot(job, console, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"))
+                     settings.parts, stdf, resume, max_faults, extra, seated=seat)
+        try:
+            code = _run_lot(job, console, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"))
+        finally:
+            if seat is not None:
+                seat.close()
     sys.exit(code)
+
+
+class _SimulatedSocket:
+    """A manual socket on the simulated bench: each seat the operator confirms puts the next
+    part of the simulated lot in that site (the simulator refuses it while the site is powered)."""
+
+    def __init__(self, resource: str) -> None:
+        from drivers.scpi_link import ScpiLink
+
+        self.link = ScpiLink("simulated socket", resource)
+
+    def __call__(self, site: int, part_id: str | None) -> None:
+        self.link.open()
+        self.link.write_and_wait(f'SIM:SEAT {site},"{part_id or "-"}"')
+        self.link.check_errors()
+
+    def close(self) -> None:
+        self.link.close()
 
 
 def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> None:

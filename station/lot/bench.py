@@ -110,7 +110,8 @@ def _attempt(link: ScpiLink, step: Callable[[], None]) -> str:
 
 
 def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
-               tell: Callable[[str], None] | None = None) -> Bench:
+               tell: Callable[[str], None] | None = None,
+               seated: Callable[[int, str | None], None] | None = None) -> Bench:
     """Open, identify and reset every instrument of `config`; raise InstrumentOpenError if one fails."""
     settings = DriverSettings(max_rail_v=config.max_rail_v, compliance_a=config.compliance_a,
                               line_hz=config.line_hz, sites=config.sites)
@@ -124,7 +125,7 @@ def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
         drivers = {role: build_driver(config.instruments[role].driver, link, settings)
                    for role, link in links.items()}
         handler = cast(PartHandler, drivers["handler"]) if "handler" in drivers else ManualHandler(
-            config.sites, ask or _prompt, tell or click.echo)
+            config.sites, ask or ask_operator, tell or click.echo, seated)
         bench = Bench(config=config,
                       supply=cast(DualRailSupply, drivers["supply"]),
                       force=cast(ForceSource, drivers["force"]),
@@ -179,7 +180,8 @@ def _known_state(bench: Bench) -> None:
         link.check_errors()
 
 
-def _prompt(text: str) -> str:
+def ask_operator(text: str) -> str:
+    """One line typed by the operator at the terminal (manual socket)."""
     try:
         return str(click.prompt(text, default="", show_default=False))
     except click.Abort:

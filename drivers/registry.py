@@ -1,20 +1,25 @@
 """Driver names, as written under `driver:` in a bench config, and how to build each driver.
 
-A driver for a new kind of instrument is added here and in its own module; the bench
-config then names it, and nothing else changes.
+One `Role` per instrument role, each with its own driver names and a builder that returns
+that role's driver type, so the bench gets typed drivers without casts. A driver for a new
+kind of instrument is added to its role's table here and in its own module; the bench config
+then names it, and nothing else changes.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from typing import Generic, TypeVar
 
 from drivers.dmm import LoopDmm
 from drivers.force import ForceSource
-from drivers.handler import ScpiHandler
+from drivers.handler import PartHandler, ScpiHandler
 from drivers.scpi_link import ScpiLink
 from drivers.supply import DualRailSupply
 from drivers.switch import FixtureSwitch
+
+D = TypeVar("D", covariant=True)
 
 
 @dataclass(frozen=True)
@@ -27,26 +32,50 @@ class DriverSettings:
     sites: int
 
 
-@dataclass(frozen=True)
-class DriverEntry:
-    role: str                                          # the role this driver can fill
-    build: Callable[[ScpiLink, DriverSettings], object]
-
-
-DRIVERS: dict[str, DriverEntry] = {
-    "scpi-dual-supply": DriverEntry(
-        "supply", lambda link, s: DualRailSupply(link, s.max_rail_v, s.compliance_a)),
-    # The force input commands the DUT output, which can never leave the rails.
-    "scpi-force-source": DriverEntry("force", lambda link, s: ForceSource(link, s.max_rail_v)),
-    "scpi-dmm": DriverEntry("dmm", lambda link, s: LoopDmm(link, s.line_hz)),
-    "scpi-fixture-switch": DriverEntry("switch", lambda link, s: FixtureSwitch(link, s.sites)),
-    "scpi-handler": DriverEntry("handler", lambda link, s: ScpiHandler(link)),
-}
-
-
 class UnknownDriver(KeyError):
     def __str__(self) -> str:
         return str(self.args[0])
+
+
+@dataclass(frozen=True)
+class Role(Generic[D]):
+    """An instrument role and the drivers that can fill it, each building a `D`."""
+
+    name: str
+    drivers: Mapping[str, Callable[[ScpiLink, DriverSettings], D]]
+
+    def build(self, driver: str, link: ScpiLink, settings: DriverSettings) -> D:
+        try:
+            builder = self.drivers[driver]
+        except KeyError:
+            raise UnknownDriver(f"{driver!r} is no {self.name} driver; {self.name} drivers: "
+                                f"{', '.join(sorted(self.drivers))}") from None
+        return builder(link, settings)
+
+
+SUPPLY: Role[DualRailSupply] = Role("supply", {
+    "scpi-dual-supply": lambda link, s: DualRailSupply(link, s.max_rail_v, s.compliance_a)})
+# The force input commands the DUT output, which can never leave the rails.
+FORCE: Role[ForceSource] = Role("force", {
+    "scpi-force-source": lambda link, s: ForceSource(link, s.max_rail_v)})
+DMM: Role[LoopDmm] = Role("dmm", {"scpi-dmm": lambda link, s: LoopDmm(link, s.line_hz)})
+SWITCH: Role[FixtureSwitch] = Role("switch", {
+    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites)})
+HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link)})
+
+ROLES: tuple[Role[object], ...] = (SUPPLY, FORCE, DMM, SWITCH, HANDLER)
+
+
+@dataclass(frozen=True)
+class DriverEntry:
+    """One driver name: the role it fills (what a bench config check needs to know)."""
+
+    name: str
+    role: str
+
+
+DRIVERS: dict[str, DriverEntry] = {name: DriverEntry(name, role.name)
+                                   for role in ROLES for name in role.drivers}
 
 
 def known_drivers(role: str | None = None) -> list[str]:
@@ -59,7 +88,3 @@ def driver_entry(name: str) -> DriverEntry:
     except KeyError:
         raise UnknownDriver(f"unknown driver {name!r}; known drivers: "
                             f"{', '.join(known_drivers())}") from None
-
-
-def build_driver(name: str, link: ScpiLink, settings: DriverSettings) -> object:
-    return driver_entry(name).build(link, settings)

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import cast
+from typing import TypeVar
 
 import click
 
@@ -18,12 +18,14 @@ from drivers.dmm import LoopDmm
 from drivers.errors import InstrumentError, InstrumentOpenError
 from drivers.force import ForceSource
 from drivers.handler import ManualHandler, PartHandler
-from drivers.registry import DriverSettings, build_driver
+from drivers.registry import DMM, FORCE, HANDLER, SUPPLY, SWITCH, DriverSettings, Role
 from drivers.scpi_link import ScpiLink
 from drivers.supply import DualRailSupply
 from drivers.switch import FixtureSwitch
 from station.config.bench_config import BenchConfig
 from station.lot.stop_signals import LotInterrupted
+
+D = TypeVar("D")
 
 # Defaults until the sequence configures the DMMs: 1 NPLC, 10 V range, autozero on.
 _DEFAULT_NPLC, _DEFAULT_RANGE_V = 1.0, 10.0
@@ -122,15 +124,16 @@ def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
             link.open()
             links[role] = link
             _check_identity(link, instrument.idn)
-        drivers = {role: build_driver(config.instruments[role].driver, link, settings)
-                   for role, link in links.items()}
-        handler = cast(PartHandler, drivers["handler"]) if "handler" in drivers else ManualHandler(
+        def build(role: Role[D], name: str) -> D:
+            return role.build(config.instruments[name].driver, links[name], settings)
+
+        handler = build(HANDLER, "handler") if "handler" in links else ManualHandler(
             config.sites, ask or ask_operator, tell or click.echo, seated)
         bench = Bench(config=config,
-                      supply=cast(DualRailSupply, drivers["supply"]),
-                      force=cast(ForceSource, drivers["force"]),
-                      dmms=[cast(LoopDmm, drivers[role]) for role in config.dmm_roles],
-                      switch=cast(FixtureSwitch, drivers["switch"]),
+                      supply=build(SUPPLY, "supply"),
+                      force=build(FORCE, "force"),
+                      dmms=[build(DMM, name) for name in config.dmm_roles],
+                      switch=build(SWITCH, "switch"),
                       handler=handler)
     except BaseException:
         for link in links.values():

@@ -57,14 +57,13 @@ def true_contact(part: PartTruth) -> str:
 def true_results(part: PartTruth, sequence: Sequence, table: LimitTable) -> list[Result]:
     """The part's exact figures, in the station's execution order (contact Iq left out)."""
     span = sequence.span_v
-    bounds = table.region_bounds(span)
     results: list[Result] = []
     for step in sequence.tests:
         if step.kind == "offset":
             results.append(Result("vos", None, vos_true(part, 0.0, span), 0))
         elif step.kind == "cm_sweep":
             vcms = list(step.point_vcms(span))
-            figures = cmrr_figures(vcms, [vos_true(part, v, span) for v in vcms], bounds, table.region_kinds())
+            figures = cmrr_figures(vcms, [vos_true(part, v, span) for v in vcms], table.regions, span)
             results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
         elif step.kind == "gain":
             figures = aol_figures(list(step.levels_v), [vos_true(part, 0.0, span, lv) for lv in step.levels_v])

@@ -22,7 +22,8 @@ from station.config.files import (
 )
 from station.config.parameters import FULL_RANGE, LIMITABLE, PARAMETERS
 from station.config.quantities import parse_quantity
-from station.config.rail_points import RailPoint, parse_rail_point
+from station.config.rail_points import parse_rail_point
+from station.config.regions import Region
 
 # Regions are checked for tiling at the nominal demo span, and their shared boundaries at a
 # second span too, so a table that tiles only at 10 V is refused.
@@ -36,14 +37,6 @@ TESTER_FAULT_NAME = "Tester fault"
 
 
 # ---- public records -------------------------------------------------------------------------
-
-@dataclass(frozen=True)
-class RegionDef:
-    name: str
-    kind: str  # "slope" (CMRR by least squares) | "step" (input-crossover transition)
-    lower: RailPoint
-    upper: RailPoint
-
 
 @dataclass(frozen=True)
 class Limit:
@@ -84,7 +77,7 @@ class ContactRule:
 class LimitTable:
     product: str
     note: str
-    regions: tuple[RegionDef, ...]  # low to high
+    regions: tuple[Region, ...]  # low to high
     grades: tuple[Grade, ...]  # best first
     hard_bins: dict[int, BinDef]
     soft_bins: dict[int, BinDef]
@@ -105,13 +98,6 @@ class LimitTable:
                 return grade
         known = ", ".join(g.name for g in self.grades)
         raise KeyError(f"no grade {name!r} in the {self.product} limit table (grades: {known})")
-
-    def region_bounds(self, span_v: float) -> dict[str, tuple[float, float]]:
-        """Each region's (low, high) VCM relative to the supply mid-point, at supply span `span_v`."""
-        return {r.name: (r.lower.vcm(span_v), r.upper.vcm(span_v)) for r in self.regions}
-
-    def region_kinds(self) -> dict[str, str]:
-        return {r.name: r.kind for r in self.regions}
 
 
 def load_limit_table(path: str | Path) -> LimitTable:
@@ -204,8 +190,8 @@ def _build(doc: YamlDocument) -> LimitTable:
         tester_fault_soft_bin=model.tester_fault.soft_bin, source=doc.file)
 
 
-def _regions(doc: YamlDocument, model: _TableModel) -> tuple[RegionDef, ...]:
-    regions: list[RegionDef] = []
+def _regions(doc: YamlDocument, model: _TableModel) -> tuple[Region, ...]:
+    regions: list[Region] = []
     for name, entry in model.regions.items():
         if name == FULL_RANGE:
             raise doc.error(["regions", name], f"'{FULL_RANGE}' is reserved for the full-range figure",
@@ -222,13 +208,13 @@ def _regions(doc: YamlDocument, model: _TableModel) -> tuple[RegionDef, ...]:
             raise doc.error(["regions", name],
                             f"region ends at '{upper}' ({hi:g} V), not above its start '{lower}' "
                             f"({lo:g} V) at a {NOMINAL_SPAN_V:g} V span", "swap 'from' and 'to'")
-        regions.append(RegionDef(name, entry.kind, lower, upper))
+        regions.append(Region(name, entry.kind, lower, upper))
     for below, above in zip(regions, regions[1:], strict=False):
         _check_adjacent(doc, below, above)
     return tuple(regions)
 
 
-def _check_adjacent(doc: YamlDocument, below: RegionDef, above: RegionDef) -> None:
+def _check_adjacent(doc: YamlDocument, below: Region, above: Region) -> None:
     """Consecutive regions must meet exactly: no overlap, no gap, listed low to high."""
     span = NOMINAL_SPAN_V
     end, start = below.upper.vcm(span), above.lower.vcm(span)
@@ -293,10 +279,10 @@ def _contact(doc: YamlDocument, model: _TableModel) -> ContactRule:
 
 
 def _grades(doc: YamlDocument, model: _TableModel,
-            regions: tuple[RegionDef, ...]) -> tuple[Grade, ...]:
+            regions: tuple[Region, ...]) -> tuple[Grade, ...]:
     if not model.grades:
         raise doc.error(["grades"], "no grades", "list at least one grade, best first")
-    kinds = {r.name: r.kind for r in regions}
+    kinds: dict[str, str] = {r.name: r.kind for r in regions}
     grades: list[Grade] = []
     seen_names: dict[str, int] = {}
     for i, g in enumerate(model.grades):
@@ -416,6 +402,6 @@ def _show(value: float, units: str) -> str:
 
 
 __all__ = [
-    "BinDef", "ContactRule", "Grade", "Limit", "LimitTable", "RegionDef",
+    "BinDef", "ContactRule", "Grade", "Limit", "LimitTable", "Region",
     "load_limit_table", "parse_limit_table", "NOMINAL_SPAN_V",
 ]

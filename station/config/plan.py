@@ -16,10 +16,11 @@ from station.config.sequence import (
     Sequence,
     TestStep,
     check_bench_safety,
-    check_region_coverage,
     load_sequence,
 )
-from station.config.test_catalog import TestDef, catalog, step_tests
+from station.config.test_catalog import StepTests, TestDef
+from station.kinds.base import KindContext
+from station.kinds.registry import kind_of, step_tests
 
 
 @dataclass(frozen=True)
@@ -27,8 +28,8 @@ class ScreenPlan:
     sequence: Sequence
     table: LimitTable
     bench: BenchConfig
-    bounds: dict[str, tuple[float, float]]     # region -> VCM range at the sequence's span
-    regions: list[tuple[str, str]]              # (name, kind), low to high
+    context: KindContext                        # the span and the table's regions, for the kinds
+    steps: dict[int, StepTests]                 # step index -> the rows it logs
     tests: list[TestDef]                        # every loggable test, in execution order
     sequence_path: Path
     limits_path: Path
@@ -40,8 +41,8 @@ class ScreenPlan:
         """Position of a test number in execution order (unknown numbers last)."""
         return self.test_order.get(test_num, len(self.test_order))
 
-    def step_tests(self, step: TestStep) -> tuple[list[TestDef], list[TestDef]]:
-        return step_tests(step, self.sequence, self.regions, self.bounds)
+    def step_tests(self, step: TestStep) -> StepTests:
+        return self.steps[step.index]
 
 
 def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> ScreenPlan:
@@ -54,12 +55,12 @@ def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> Scre
                           f"limit table {table.source} is for {table.product!r}",
                           hint="pick the limit table of the same product")
     check_bench_safety(sequence, bench.max_rail_v, bench.compliance_a)
-    bounds = table.region_bounds(sequence.span_v)
-    kinds = table.region_kinds()
-    check_region_coverage(sequence, bounds, kinds)
-    regions = [(r.name, r.kind) for r in table.regions]
-    tests = catalog(sequence, regions, bounds)
-    return ScreenPlan(sequence=sequence, table=table, bench=bench, bounds=bounds, regions=regions,
+    context = KindContext(sequence.span_v, table.regions)
+    for step in sequence.tests:
+        kind_of(step).check(step, sequence, context)
+    steps = {step.index: step_tests(step, context) for step in sequence.tests}
+    tests = [test for step in sequence.tests for test in steps[step.index].in_order]
+    return ScreenPlan(sequence=sequence, table=table, bench=bench, context=context, steps=steps,
                       tests=tests, test_order={t.test_num: i for i, t in enumerate(tests)},
                       sequence_path=Path(sequence_path),
                       limits_path=Path(limits_path), bench_path=Path(bench_path))

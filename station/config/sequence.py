@@ -16,6 +16,7 @@ from typing import Any
 from station.config.files import ConfigError, YamlDocument, load_yaml_file, parse_yaml_text
 from station.config.quantities import parse_quantity
 from station.config.rail_points import RailPoint, parse_rail_point, rails_for
+from station.config.regions import Region
 
 TEST_KINDS = ("contact", "offset", "cm_sweep", "gain", "supply_rejection", "supply_current")
 FORCE_LEVEL_LIMIT_V = 10.0  # the force source's own range, per docs/bench-commands.md
@@ -341,8 +342,7 @@ def check_bench_safety(sequence: Sequence, max_rail_v: float, compliance_a: floa
                                          f"{sequence.span_v:g} V span", hint="keep levels inside the rails")
 
 
-def check_region_coverage(sequence: Sequence, region_bounds: dict[str, tuple[float, float]],
-                          region_kinds: dict[str, str]) -> None:
+def check_region_coverage(sequence: Sequence, regions: tuple[Region, ...]) -> None:
     """Refuse a sweep that leaves a limit-table region without enough points to compute its figure.
 
     A slope region needs two points for a least-squares slope; a step region needs one.
@@ -353,9 +353,9 @@ def check_region_coverage(sequence: Sequence, region_bounds: dict[str, tuple[flo
         vcms = step.point_vcms(sequence.span_v)
         where = {"line": step.line, "key": f"tests[{step.index - 1}]"}
         for point, vcm in zip(step.points, vcms, strict=True):
-            if region_of(vcm, region_bounds) is None:
+            if region_of(vcm, regions, sequence.span_v) is None:
                 raise ConfigError(sequence.source, f"common-mode point '{point}' lies outside every "
                                   "region of the limit table", hint="remove it or widen the regions", **where)
-        problems = region_point_problems(vcms, region_bounds, region_kinds)
+        problems = region_point_problems(vcms, regions, sequence.span_v)
         if problems:
             raise ConfigError(sequence.source, problems[0], hint="add points inside that region", **where)

@@ -11,18 +11,19 @@ Pure functions over plain numbers (V, V/V, dB); no instruments, no files. Conven
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 from station.config.parameters import FULL_RANGE
 from station.config.quantities import rejection_db
+from station.config.regions import Region, RegionKind
 
 # Common-mode points sit on region boundaries by design; computed VCMs carry float noise
 # (5 - 1.6 is not exactly 3.4), so a point within this distance of a boundary counts as on it.
 BOUNDARY_TOLERANCE_V = 1e-9
 
 # Fewest points per region kind: a slope needs two distinct VCMs, a step at least one reading.
-MIN_POINTS = {"slope": 2, "step": 1}
+MIN_POINTS: dict[RegionKind, int] = {"slope": 2, "step": 1}
 
 
 class MeasurementError(ValueError):
@@ -90,12 +91,14 @@ def endpoint_slope(x: Sequence[float], y: Sequence[float]) -> float:
     return (math.fsum(y_hi) / len(y_hi) - math.fsum(y_lo) / len(y_lo)) / (hi - lo)
 
 
-def region_of(vcm: float, region_bounds: Mapping[str, tuple[float, float]]) -> str | None:
-    """Region holding `vcm`: half-open [lo, hi), the topmost region also closed at its top."""
-    if not region_bounds:
+def region_of(vcm: float, regions: Sequence[Region], span_v: float) -> str | None:
+    """Region holding `vcm` at span `span_v`: half-open [lo, hi), the topmost region also
+    closed at its top."""
+    if not regions:
         return None
-    top = max(region_bounds, key=lambda name: region_bounds[name][1])
-    for name, (lo, hi) in region_bounds.items():
+    ranges = {r.name: r.vcm_range(span_v) for r in regions}
+    top = max(ranges, key=lambda name: ranges[name][1])
+    for name, (lo, hi) in ranges.items():
         if lo - BOUNDARY_TOLERANCE_V <= vcm < hi - BOUNDARY_TOLERANCE_V:
             return name
         if name == top and abs(vcm - hi) <= BOUNDARY_TOLERANCE_V:
@@ -103,63 +106,61 @@ def region_of(vcm: float, region_bounds: Mapping[str, tuple[float, float]]) -> s
     return None
 
 
-def points_per_region(vcm_points: Sequence[float],
-                      region_bounds: Mapping[str, tuple[float, float]]) -> dict[str, int]:
+def points_per_region(vcm_points: Sequence[float], regions: Sequence[Region],
+                      span_v: float) -> dict[str, int]:
     """How many sweep points fall in each region (every region listed, zero included)."""
-    counts = dict.fromkeys(region_bounds, 0)
+    counts = {r.name: 0 for r in regions}
     for vcm in vcm_points:
-        name = region_of(vcm, region_bounds)
+        name = region_of(vcm, regions, span_v)
         if name is not None:
             counts[name] += 1
     return counts
 
 
-def region_point_problems(vcm_points: Sequence[float],
-                          region_bounds: Mapping[str, tuple[float, float]],
-                          region_kinds: Mapping[str, str]) -> list[str]:
+def region_point_problems(vcm_points: Sequence[float], regions: Sequence[Region],
+                          span_v: float) -> list[str]:
     """Why a sweep cannot give every region's figure (empty list: it can). For loaders."""
     problems = []
-    for name, kind in region_kinds.items():
-        inside = [v for v in vcm_points if region_of(v, region_bounds) == name]
-        usable = len(set(inside)) if kind == "slope" else len(inside)
-        need = MIN_POINTS[kind]
+    for region in regions:
+        inside = [v for v in vcm_points if region_of(v, regions, span_v) == region.name]
+        usable = len(set(inside)) if region.kind == "slope" else len(inside)
+        need = MIN_POINTS[region.kind]
         if usable < need:
             count = f"{usable} common-mode point{'' if usable == 1 else 's'}"
             if usable != len(inside):
                 count = f"{usable} distinct common-mode point{'' if usable == 1 else 's'} ({len(inside)} in all)"
-            problems.append(f"region {name!r} has {count}; it needs at least {need}")
+            problems.append(f"region {region.name!r} has {count}; it needs at least {need}")
     return problems
 
 
-def cmrr_figures(vcm: Sequence[float], vos: Sequence[float],
-                 region_bounds: Mapping[str, tuple[float, float]],
-                 region_kinds: Mapping[str, str]) -> list[Figure]:
-    """Figures of a common-mode sweep: per slope region cmrr_slope + cmrr, per step region
-    cm_step + vos_worst, then the full-range end-point cmrr_slope + cmrr.
+def cmrr_figures(vcm: Sequence[float], vos: Sequence[float], regions: Sequence[Region],
+                 span_v: float) -> list[Figure]:
+    """Figures of a common-mode sweep at span `span_v`: per slope region cmrr_slope + cmrr,
+    per step region cm_step + vos_worst, then the full-range end-point cmrr_slope + cmrr.
 
-    Regions come out in the order of `region_bounds`. Raises MeasurementError naming the
-    region when a region has too few points.
+    Regions come out in the order given (a limit table's: low to high). Raises
+    MeasurementError naming the region when a region has too few points.
     """
     if len(vcm) != len(vos):
         raise MeasurementError(f"{len(vcm)} common-mode points but {len(vos)} offset readings")
-    problems = region_point_problems(vcm, region_bounds, region_kinds)
+    problems = region_point_problems(vcm, regions, span_v)
     if problems:
         raise MeasurementError(problems[0])
     figures: list[Figure] = []
-    for name in region_bounds:
-        kind = region_kinds.get(name)
-        pairs = [(x, y) for x, y in zip(vcm, vos, strict=True) if region_of(x, region_bounds) == name]
+    for region in regions:
+        name = region.name
+        pairs = [(x, y) for x, y in zip(vcm, vos, strict=True) if region_of(x, regions, span_v) == name]
         xs = [p[0] for p in pairs]
         ys = [p[1] for p in pairs]
-        if kind == "slope":
+        if region.kind == "slope":
             slope = least_squares_slope(xs, ys)
             figures.append(Figure("cmrr_slope", name, slope, "V/V"))
             figures.append(Figure("cmrr", name, rejection_db(slope), "dB"))
-        elif kind == "step":
+        elif region.kind == "step":
             figures.append(Figure("cm_step", name, _spread(ys), "V"))
             figures.append(Figure("vos_worst", name, _worst(ys), "V"))
-        elif kind is not None:
-            raise MeasurementError(f"region {name!r} has unknown kind {kind!r}")
+        else:
+            raise MeasurementError(f"region {name!r} has unknown kind {region.kind!r}")
     full = endpoint_slope(vcm, vos)
     figures.append(Figure("cmrr_slope", FULL_RANGE, full, "V/V"))
     figures.append(Figure("cmrr", FULL_RANGE, rejection_db(full), "dB"))

@@ -23,6 +23,7 @@ from station import __version__
 from station.config.plan import ScreenPlan
 from station.datalog.resume import ResumeState
 from station.datalog.writer import DatalogWriter, PartRecord
+from station.lot.bench import Bench
 from station.lot.index_screen import IndexScreen, PartOutcome
 from station.lot.site_readings import SiteReader
 from station.lot.stop_signals import LotInterrupted, signals_deferred
@@ -87,7 +88,7 @@ class LotTally:
 
 
 class LotRunner:
-    def __init__(self, plan: ScreenPlan, bench, writer: DatalogWriter, settings: LotSettings,
+    def __init__(self, plan: ScreenPlan, bench: Bench, writer: DatalogWriter, settings: LotSettings,
                  on_part: Callable[[PartRecord, LotTally], None] | None = None,
                  sleep: Callable[[float], None] = time.sleep, resume: ResumeState | None = None,
                  tell: Callable[[str], None] = lambda text: None) -> None:

@@ -6,7 +6,7 @@ thread, so the integrations overlap and no reply waits behind another instrument
 single DMM behind the scanner, the sites are read one after another (while one is read,
 the others go on settling).
 
-Settling (see station/sequence.Settle): a fixed wait, or adaptive. Adaptive settling reads
+Settling (see station/config/sequence.Settle): a fixed wait, or adaptive. Adaptive settling reads
 reading groups back to back from the source change on (the DMM integrates while the loop
 settles, so waiting costs no extra time) and stops, site by site, when a group is stable:
 - absolute: it agrees with the group before within `stable_within` (RTI volts);
@@ -24,6 +24,8 @@ from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
+from drivers.dmm import LoopDmm
+from drivers.switch import FixtureSwitch
 from station.config.sequence import Settle, TestStep
 from station.judge.measure import vos_from_loop
 from station.lot.settle_rule import (
@@ -62,8 +64,8 @@ class _Track:
 
 @dataclass
 class SiteReader:
-    dmms: list            # LoopDmm drivers (one per site, or one with the scanner)
-    switch: object        # FixtureSwitch, for the scanner
+    dmms: list[LoopDmm]           # one per site, or one with the scanner
+    switch: FixtureSwitch | None  # routes the one DMM to a site (needed only with the scanner)
     loop_gain: float
     dmm_per_site: bool
     dmm_range_v: float
@@ -72,7 +74,7 @@ class SiteReader:
     clock: Callable[[], float] = time.monotonic
     stats: ReadingStats = field(default_factory=ReadingStats)
     noise_rti: dict[float, float] = field(default_factory=dict)  # NPLC -> RMS of one sample, V RTI
-    _config: tuple | None = None
+    _config: tuple[float, int] | None = None
     _pool: ThreadPoolExecutor | None = None
 
     def configure(self, nplc: float, samples: int) -> None:
@@ -83,6 +85,10 @@ class SiteReader:
         for dmm in self.dmms:
             dmm.configure(nplc=nplc, range_v=self.dmm_range_v, autozero=self.autozero, samples=samples)
         self._config = wanted
+
+    def forget_config(self) -> None:
+        """The DMMs may have lost their settings (after a fault): configure them again next time."""
+        self._config = None
 
     def _group_time_s(self) -> float:
         return self.dmms[0].integration_time_s
@@ -96,6 +102,8 @@ class SiteReader:
     def _group(self, sites: list[int]) -> dict[int, list[float]]:
         """One reading group (SAMPle:COUNt samples) per site, in volts at the loop node."""
         if not self.dmm_per_site:
+            if self.switch is None:
+                raise ValueError("one DMM for several sites needs the fixture switch to route it")
             values = {}
             for site in sites:
                 self.switch.route_to_dmm(site)

@@ -1,8 +1,8 @@
 """Re-grade and re-bin a datalog offline with another limit table ("what would this do to yield").
 
 Per part, the logged computed rows are graded again with station.judge.grading.grade_part. When the
-new table's common-mode regions differ from the datalog's own (region_bounds at lot.json
-span_v, or the region kinds), the region figures (cmrr, cmrr_slope, cm_step, vos_worst) are
+new table's common-mode regions differ from the datalog's own (their names, kinds, or
+bounds at lot.json span_v), the region figures (cmrr, cmrr_slope, cm_step, vos_worst) are
 recomputed from the logged raw vos_cm points with station.judge.measure.cmrr_figures; every other
 figure is taken as logged.
 
@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from station.config.limit_tables import LimitTable
+from station.config.regions import Region
 from station.judge import grading, measure
 from station.review.limits import datalog_table
 from station.review.load import RAW_PARAMS, Datalogs
@@ -55,12 +56,10 @@ def regions_differ(old: LimitTable | None, new: LimitTable, span_v: float) -> bo
     """True when the new table's regions (bounds at span_v, kinds) are not the old ones."""
     if old is None:
         return True
-    if old.region_kinds() != new.region_kinds():
+    if [(r.name, r.kind) for r in old.regions] != [(r.name, r.kind) for r in new.regions]:
         return True
-    a, b = old.region_bounds(span_v), new.region_bounds(span_v)
-    if list(a) != list(b):
-        return True
-    return any(abs(a[k][0] - b[k][0]) > BIN_TOLERANCE_V or abs(a[k][1] - b[k][1]) > BIN_TOLERANCE_V for k in a)
+    return any(abs(x - y) > BIN_TOLERANCE_V for a, b in zip(old.regions, new.regions, strict=True)
+               for x, y in zip(a.vcm_range(span_v), b.vcm_range(span_v), strict=True))
 
 
 def rebin(logs: Datalogs, new: LimitTable) -> RebinResult:
@@ -76,7 +75,6 @@ def rebin(logs: Datalogs, new: LimitTable) -> RebinResult:
         notes.append("the datalog's limits.yaml is missing or unreadable: region figures recomputed "
                      "from the raw points, contact fails told by their rows")
     recompute = regions_differ(old, new, float(span))
-    bounds, kinds = new.region_bounds(float(span)), new.region_kinds()
     results = logs.results
     sweeps = _sweeps(results) if recompute else {}
     if recompute and not sweeps:
@@ -101,8 +99,8 @@ def rebin(logs: Datalogs, new: LimitTable) -> RebinResult:
             continue
         part_results = per_part.get(int(seq), [])
         if recompute:
-            part_results = _with_region_figures(part_results, sweeps.get(int(seq)), bounds, kinds,
-                                                str(before["PART_ID"].iat[i]))
+            part_results = _with_region_figures(part_results, sweeps.get(int(seq)), new.regions,
+                                                float(span), str(before["PART_ID"].iat[i]))
             recomputed += [(int(seq), r.param, r.region or "", r.value)
                            for r in part_results if r.param in REGION_PARAMS]
         verdict = grading.grade_part(part_results, new)
@@ -165,7 +163,7 @@ def _sweeps(results: pd.DataFrame) -> dict[int, Sweep]:
 
 
 def _with_region_figures(results: list[grading.Result], sweep: Sweep | None,
-                         bounds: dict[str, tuple[float, float]], kinds: dict[str, str],
+                         regions: tuple[Region, ...], span_v: float,
                          part_id: str) -> list[grading.Result]:
     """The part's results with its region figures recomputed under the new regions.
 
@@ -176,7 +174,7 @@ def _with_region_figures(results: list[grading.Result], sweep: Sweep | None,
     if sweep is None:
         return kept
     try:
-        figures = measure.cmrr_figures(sweep.vcm, sweep.vos, bounds, kinds)
+        figures = measure.cmrr_figures(sweep.vcm, sweep.vos, regions, span_v)
     except measure.MeasurementError as exc:
         raise RebinError(f"part {part_id}: the logged sweep does not fit the new regions: {exc}") from None
     new = [grading.Result(f.param, f.region, f.value, sweep.test_base + i + 1) for i, f in enumerate(figures)]

@@ -218,6 +218,7 @@ def _curves(logs: Datalogs) -> tuple[str, str] | None:
     curves = {int(seq): (g["VCM"].to_numpy(), g["RESULT"].to_numpy()) for seq, g in sample.groupby("PART_SEQ")}
     table = datalog_table(logs, 0)
     span = logs.lots[0].get("span_v")
-    regions = table.region_bounds(float(span)) if table is not None and isinstance(span, int | float) else {}
+    regions = ({r.name: r.vcm_range(float(span)) for r in table.regions}
+               if table is not None and isinstance(span, int | float) else {})
     title = f"Vos versus common mode, {len(curves)} of {len(parts)} parts"
     return title, vos_curves(curves, regions, title)

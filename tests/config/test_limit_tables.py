@@ -82,8 +82,9 @@ def test_demo_table_loads():
     assert table.product == "PX-401"
     assert [g.name for g in table.grades] == ["A", "B"]
     assert table.loosest.name == "B"
-    assert table.region_kinds() == {"low": "slope", "transition": "step", "high": "slope"}
-    bounds = table.region_bounds(10.0)
+    assert [(r.name, r.kind) for r in table.regions] == [("low", "slope"), ("transition", "step"),
+                                                         ("high", "slope")]
+    bounds = {r.name: r.vcm_range(10.0) for r in table.regions}
     assert bounds["low"] == pytest.approx((-5.1, 3.4))
     assert bounds["transition"] == pytest.approx((3.4, 4.0))
     assert bounds["high"] == pytest.approx((4.0, 5.1))
@@ -107,7 +108,8 @@ def test_demo_table_says_it_is_invented():
 
 def test_region_bounds_follow_the_span():
     table = parse_limit_table(BASE)
-    assert table.region_bounds(20.0)["transition"] == pytest.approx((8.4, 9.0))
+    transition = next(r for r in table.regions if r.name == "transition")
+    assert transition.vcm_range(20.0) == pytest.approx((8.4, 9.0))
 
 
 def test_missing_file():

@@ -7,6 +7,7 @@ import textwrap
 import pytest
 
 from station.config.files import ConfigError
+from station.config.regions import fixed_region
 from station.config.sequence import (
     check_bench_safety,
     check_region_coverage,
@@ -98,16 +99,16 @@ def test_safety_refuses_psrr_span_beyond_the_rails() -> None:
 
 def test_region_with_too_few_points_is_a_sequence_error() -> None:
     seq = parse_sequence(GOOD, "s.yaml")
-    bounds = {"low": (-5.1, 3.4), "transition": (3.4, 4.0), "high": (4.0, 5.1)}
-    kinds = {"low": "slope", "transition": "step", "high": "slope"}
+    regions = (fixed_region("low", "slope", -5.1, 3.4), fixed_region("transition", "step", 3.4, 4.0),
+               fixed_region("high", "slope", 4.0, 5.1))
     with pytest.raises(ConfigError) as info:
-        check_region_coverage(seq, bounds, kinds)
+        check_region_coverage(seq, regions)
     assert "region 'transition'" in str(info.value) and "needs at least 1" in str(info.value)
     assert str(info.value).startswith("s.yaml:7:")  # the cm_sweep entry
 
 
 def test_point_outside_every_region_is_refused() -> None:
     seq = parse_sequence(textwrap.dedent(GOOD).replace('"V+ + 0.1 V"', '"V+ + 0.5 V"'))
-    bounds = {"low": (-5.1, 3.4), "high": (3.4, 5.1)}
+    regions = (fixed_region("low", "slope", -5.1, 3.4), fixed_region("high", "slope", 3.4, 5.1))
     with pytest.raises(ConfigError, match="outside every region"):
-        check_region_coverage(seq, bounds, {"low": "slope", "high": "slope"})
+        check_region_coverage(seq, regions)

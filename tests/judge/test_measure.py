@@ -10,6 +10,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from scipy import stats
 
+from station.config.regions import fixed_region
 from station.judge.measure import (
     Figure,
     MeasurementError,
@@ -26,8 +27,11 @@ from station.judge.measure import (
 )
 
 # PX-401-like regions at a 10 V span (invented demo product): low pair, crossover, high pair.
-BOUNDS = {"low": (-5.1, 3.4), "transition": (3.4, 4.0), "high": (4.0, 5.1)}
-KINDS = {"low": "slope", "transition": "step", "high": "slope"}
+# Written at fixed voltages (mid-referenced), so the span passed along changes nothing.
+REGIONS = (fixed_region("low", "slope", -5.1, 3.4), fixed_region("transition", "step", 3.4, 4.0),
+           fixed_region("high", "slope", 4.0, 5.1))
+SPAN = 10.0
+WIDE = (fixed_region("low", "slope", -5.1, 5.1),)
 
 
 def by_key(figures: list[Figure]) -> dict[tuple[str, str | None], Figure]:
@@ -98,18 +102,18 @@ def test_endpoint_slope_uses_the_two_ends():
     (-5.2, None),
 ])
 def test_region_of_at_boundaries(vcm, region):
-    assert region_of(vcm, BOUNDS) == region
+    assert region_of(vcm, REGIONS, SPAN) == region
 
 
 def test_region_of_forgives_float_noise_at_a_boundary():
     # 5 - 1.6 computed in floating point must still land in the transition region.
-    assert region_of(3.4 - 1e-12, BOUNDS) == "transition"
+    assert region_of(3.4 - 1e-12, REGIONS, SPAN) == "transition"
 
 
 def test_points_per_region_counts_every_region():
     points = [-5.1, 0.0, 3.4, 3.7, 4.0, 5.1, 6.0]
-    assert points_per_region(points, BOUNDS) == {"low": 2, "transition": 2, "high": 2}
-    assert points_per_region([-5.0], BOUNDS) == {"low": 1, "transition": 0, "high": 0}
+    assert points_per_region(points, REGIONS, SPAN) == {"low": 2, "transition": 2, "high": 2}
+    assert points_per_region([-5.0], REGIONS, SPAN) == {"low": 1, "transition": 0, "high": 0}
 
 
 def test_cmrr_figures_per_region_and_full_range():
@@ -125,7 +129,7 @@ def test_cmrr_figures_per_region_and_full_range():
         else:
             vos.append(10e-6 + low_slope * 3.4 + step + high_slope * (v - 4.0))
     vos = [y + rng.normal(0, 1e-9) for y in vos]
-    figs = by_key(cmrr_figures(vcm, vos, BOUNDS, KINDS))
+    figs = by_key(cmrr_figures(vcm, vos, REGIONS, SPAN))
     low_x = [v for v in vcm if v < 3.4]
     low_y = vos[:len(low_x)]
     # Reference library: numpy.polyfit for the region slope.
@@ -154,19 +158,19 @@ def test_cmrr_figures_per_region_and_full_range():
 def test_cmrr_db_check_values(slope, db):
     vcm = [-5.0, -2.0, 1.0, 3.0]
     vos = [slope * v for v in vcm]
-    figs = by_key(cmrr_figures(vcm, vos, {"low": (-5.1, 5.1)}, {"low": "slope"}))
+    figs = by_key(cmrr_figures(vcm, vos, WIDE, SPAN))
     assert figs[("cmrr", "low")].value == pytest.approx(db, abs=0.005)
     assert figs[("cmrr", "full")].value == pytest.approx(db, abs=0.005)
 
 
 def test_zero_slope_is_infinite_rejection():
-    figs = by_key(cmrr_figures([-1.0, 1.0], [5e-6, 5e-6], {"low": (-5.1, 5.1)}, {"low": "slope"}))
+    figs = by_key(cmrr_figures([-1.0, 1.0], [5e-6, 5e-6], WIDE, SPAN))
     assert figs[("cmrr", "low")].value == math.inf
 
 
 def test_overrange_point_in_region_makes_cmrr_fail_side():
     figs = by_key(cmrr_figures([-1.0, 0.0, 1.0], [0.0, math.inf, 1e-6],
-                               {"low": (-5.1, 5.1)}, {"low": "slope"}))
+                               WIDE, SPAN))
     assert figs[("cmrr_slope", "low")].value == math.inf
     assert figs[("cmrr", "low")].value == -math.inf  # below any lower limit
 
@@ -174,17 +178,17 @@ def test_overrange_point_in_region_makes_cmrr_fail_side():
 def test_slope_region_with_one_point_is_refused_by_name():
     vcm = [-5.1, 0.0, 3.4, 3.7, 5.1]
     with pytest.raises(MeasurementError, match=r"region 'high' has 1 common-mode point; it needs at least 2"):
-        cmrr_figures(vcm, [0.0] * len(vcm), BOUNDS, KINDS)
+        cmrr_figures(vcm, [0.0] * len(vcm), REGIONS, SPAN)
 
 
 def test_step_region_with_no_point_is_refused_by_name():
     vcm = [-5.1, 0.0, 4.0, 5.1]
     with pytest.raises(MeasurementError, match=r"region 'transition' has 0 common-mode points"):
-        cmrr_figures(vcm, [0.0] * len(vcm), BOUNDS, KINDS)
+        cmrr_figures(vcm, [0.0] * len(vcm), REGIONS, SPAN)
 
 
 def test_repeated_points_do_not_count_as_a_slope():
-    problems = region_point_problems([4.5, 4.5, -1.0, 0.0, 3.5], BOUNDS, KINDS)
+    problems = region_point_problems([4.5, 4.5, -1.0, 0.0, 3.5], REGIONS, SPAN)
     assert problems == ["region 'high' has 1 distinct common-mode point (2 in all); it needs at least 2"]
 
 

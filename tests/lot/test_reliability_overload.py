@@ -22,6 +22,8 @@ class _SiteTwoUnpowered:
         self.contact_done = False
 
     def power_sites(self, sites: set[int]) -> None:
+        if len(sites) > 1:  # the contact check powers each site alone, then the good ones together
+            self.contact_done = True
         if self.contact_done:
             sites = set(sites) - {2}
         self._switch.power_sites(sites)
@@ -42,13 +44,6 @@ def test_open_site_reads_over_range_and_fails_limits(tmp_path):
                                 dmm_per_site=True, dmm_range_v=plan.sequence.dmm_range_v,
                                 autozero=plan.sequence.autozero)
             screen = IndexScreen(bench, plan, reader)
-            original = screen._contact
-
-            def contact_then_break(*args):
-                original(*args)
-                switch.contact_done = True
-
-            screen._contact = contact_then_break  # type: ignore[method-assign]
             screen.power_up()
             ids = bench.handler.next_index()
             assert ids is not None and ids[1] is not None

@@ -86,15 +86,14 @@ def vos_curve(true: dict[str, float], vcm: np.ndarray) -> np.ndarray:
 
 def part_rows(true: dict[str, float], table: LimitTable, rng: np.random.Generator) -> list[tuple]:
     """(test_num, text, param, region, vcm, cond, value, units) in execution order."""
-    bounds = table.region_bounds(SPAN_V)
     rows: list[tuple] = [(1001, "Iq contact check", "contact_iq", None, 0.0, None, true["iq"], "A")]
     rows.append((2001, "Vos at nominal supply", "vos", None, 0.0, None, true["vos"], "V"))
     vcm = np.array(CM_POINTS)
     vos = vos_curve(true, vcm) + rng.normal(0.0, 0.05e-6, len(vcm))
     for i, (x, y) in enumerate(zip(vcm, vos, strict=True)):
-        rows.append((3101 + i, f"Vos at VCM {x:+.3f} V", "vos_cm", measure.region_of(x, bounds),
+        rows.append((3101 + i, f"Vos at VCM {x:+.3f} V", "vos_cm", measure.region_of(x, table.regions, SPAN_V),
                      float(x), None, float(y), "V"))
-    figures = measure.cmrr_figures(vcm.tolist(), vos.tolist(), bounds, table.region_kinds())
+    figures = measure.cmrr_figures(vcm.tolist(), vos.tolist(), table.regions, SPAN_V)
     for i, f in enumerate(figures):
         rows.append((3001 + i, f"{f.param} {f.region}", f.param, f.region, None, None, f.value, f.units))
     levels = np.array(FORCE_LEVELS)

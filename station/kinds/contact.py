@@ -1,0 +1,40 @@
+"""Contact check: each site powered alone, its supply current against the open/short window.
+
+A part outside the window is lifted and re-seated and checked again, up to `retest` times.
+Only the parts that made contact are measured further; the others are binned by the window.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+from station.config.test_catalog import StepRows, StepTests
+from station.judge.grading import contact_state
+from station.kinds.base import KindContext, SiteWork, StepScreen, TestKind, current_wait
+
+if TYPE_CHECKING:
+    from station.config.sequence import TestStep
+
+
+class ContactCheck(TestKind):
+    name = "contact"
+    title = "Contact (Iq window)"
+    checks_contact = True
+
+    def lay_out(self, step: TestStep, rows: StepRows, context: KindContext) -> None:
+        rows.figure("Iq contact check", "contact_iq")
+
+    def run(self, step: TestStep, tests: StepTests, screen: StepScreen, parts: list[SiteWork]) -> None:
+        wait = current_wait(step)
+        for part in parts:
+            iq = screen.measure_iq(part.site, wait)
+            part.contact = contact_state(iq, screen.table)
+            for _ in range(step.retest):
+                if part.contact == "ok":
+                    break
+                screen.power_sites(set())
+                screen.reseat(part.site)
+                iq = screen.measure_iq(part.site, wait)
+                part.contact = contact_state(iq, screen.table)
+            part.figures.append((tests.figures[0], iq))
+        screen.power_sites({p.site for p in parts if p.contact == "ok"})

@@ -35,6 +35,8 @@ from sim_instruments.model import (
 from sim_instruments.population import PartTruth
 from station.config.rail_points import rails_for
 from station.config.sequence import Sequence, TestStep
+from station.kinds.base import SweepKind
+from station.kinds.registry import kind_of
 from station.lot.sweep_order import visit_order
 
 State = tuple[float, float, float]  # (V+, V-, Vout)
@@ -49,17 +51,9 @@ class FloorBench:
 
 
 def conditions_of(step: TestStep, span: float) -> list[tuple[tuple[float, float], float]]:
-    """The step's bench conditions ((V+, V-), force), as station/index_screen builds them."""
-    nominal = rails_for(0.0, span)
-    if step.kind == "offset":
-        return [(nominal, 0.0)]
-    if step.kind == "cm_sweep":
-        return [(rails_for(v, span), 0.0) for v in step.point_vcms(span)]
-    if step.kind == "gain":
-        return [(nominal, level) for level in step.levels_v]
-    if step.kind == "supply_rejection":
-        return [(rails_for(0.0, s), 0.0) for s in step.spans_v]
-    return []
+    """The step's bench conditions ((V+, V-), force): its kind's own (station/kinds)."""
+    kind = kind_of(step)
+    return kind.conditions(step, span) if isinstance(kind, SweepKind) else []
 
 
 def index_floor(sequence: Sequence, parts: list[PartTruth], bench: FloorBench,

@@ -23,7 +23,8 @@ from sim_instruments.population import PartTruth
 from station.config.limit_tables import LimitTable
 from station.config.sequence import Sequence
 from station.judge.grading import Result, check_value, contact_verdict, grade_part, limit_for
-from station.judge.measure import aol_figures, cmrr_figures, psrr_figures
+from station.kinds.base import KindContext, SweepKind
+from station.kinds.registry import kind_of
 
 NOMINAL_SPAN_V = 10.0
 
@@ -55,21 +56,18 @@ def true_contact(part: PartTruth) -> str:
 
 
 def true_results(part: PartTruth, sequence: Sequence, table: LimitTable) -> list[Result]:
-    """The part's exact figures, in the station's execution order (contact Iq left out)."""
+    """The part's exact figures, in the station's execution order (contact Iq left out): each
+    sweep kind's own figure math over the part's exact offsets at that kind's conditions."""
     span = sequence.span_v
+    context = KindContext(span, table.regions)
     results: list[Result] = []
     for step in sequence.tests:
-        if step.kind == "offset":
-            results.append(Result("vos", None, vos_true(part, 0.0, span), 0))
-        elif step.kind == "cm_sweep":
-            vcms = list(step.point_vcms(span))
-            figures = cmrr_figures(vcms, [vos_true(part, v, span) for v in vcms], table.regions, span)
-            results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
-        elif step.kind == "gain":
-            figures = aol_figures(list(step.levels_v), [vos_true(part, 0.0, span, lv) for lv in step.levels_v])
-            results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
-        elif step.kind == "supply_rejection":
-            figures = psrr_figures(list(step.spans_v), [vos_true(part, 0.0, s) for s in step.spans_v])
+        kind = kind_of(step)
+        if isinstance(kind, SweepKind):
+            # A condition's rails put the inputs at VCM -(V+ + V-)/2 on a span V+ - V-.
+            readings = [vos_true(part, -(v_pos + v_neg) / 2.0, v_pos - v_neg, force)
+                        for (v_pos, v_neg), force in kind.conditions(step, span)]
+            figures = kind.figures(step, readings, context)
             results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
         elif step.kind == "supply_current":
             results.append(Result("iq", None, part.iq(span), 0))

@@ -10,7 +10,8 @@ from hypothesis import given
 from hypothesis import strategies as st
 from scipy import stats
 
-from station.config.regions import fixed_region
+from station.config.rail_points import RailPoint
+from station.config.regions import Region, fixed_region
 from station.judge.measure import (
     Figure,
     MeasurementError,
@@ -214,3 +215,15 @@ def test_psrr_slope_and_db():
     assert figs[("psrr", None)].value == pytest.approx(100.0)  # common practice, no source: 10 uV/V is 100 dB
     with pytest.raises(MeasurementError):
         psrr_figures([10.0], [1e-6])
+
+
+def test_rail_relative_regions_move_with_the_span():
+    # The demo table's transition region, written against V+: 1.6 V to 1.0 V below it.
+    transition = Region("transition", "step", RailPoint("V+", -1.6), RailPoint("V+", -1.0))
+    below = Region("low", "slope", RailPoint("V-", -0.1), RailPoint("V+", -1.6))
+    regions = (below, transition)
+    # At 10 V the top rail sits 5 V above mid, at 20 V 10 V above it (rails_for's convention).
+    assert region_of(3.7, regions, 10.0) == "transition"
+    assert region_of(3.7, regions, 20.0) == "low"
+    assert region_of(8.7, regions, 20.0) == "transition"
+    assert points_per_region([3.5, 3.7, 8.5], regions, 20.0) == {"low": 2, "transition": 1}

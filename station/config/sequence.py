@@ -2,9 +2,8 @@
 
 A sequence file (YAML) lists the tests; `load_sequence` validates it into plain frozen
 records with SI floats. `check_bench_safety` refuses a sequence that would drive a rail or a
-current beyond the bench's safety limits, and `check_region_coverage` refuses a sweep that
-leaves a common-mode region of the limit table without enough points. Both run before
-anything is powered.
+current beyond the bench's safety limits (each test kind names the rails it programs and
+checks its own conditions, station/kinds); it runs before anything is powered.
 """
 
 from __future__ import annotations
@@ -16,10 +15,9 @@ from typing import Any
 from station.config.files import ConfigError, YamlDocument, load_yaml_file, parse_yaml_text
 from station.config.quantities import parse_quantity
 from station.config.rail_points import RailPoint, parse_rail_point, rails_for
-from station.config.regions import Region
+from station.kinds.registry import KINDS, kind_of
 
-TEST_KINDS = ("contact", "offset", "cm_sweep", "gain", "supply_rejection", "supply_current")
-FORCE_LEVEL_LIMIT_V = 10.0  # the force source's own range, per docs/bench-commands.md
+TEST_KINDS = tuple(KINDS)
 
 
 @dataclass(frozen=True)
@@ -98,10 +96,7 @@ _TEST_KEYS = {
     "supply_rejection": {"spans"},
     "supply_current": set(),
 }
-_DEFAULT_NAMES = {
-    "contact": "Contact (Iq window)", "offset": "Offset at nominal", "cm_sweep": "Common-mode sweep",
-    "gain": "Open-loop gain", "supply_rejection": "Supply rejection", "supply_current": "Supply current",
-}
+_DEFAULT_NAMES = {name: kind.title for name, kind in KINDS.items()}
 
 
 def load_sequence(path: str | Path) -> Sequence:
@@ -311,10 +306,7 @@ def sweep_rails(sequence: Sequence) -> list[tuple[str, float, float]]:
     """Every (what, V+, V-) the sequence will program, for the safety check."""
     rails = [("nominal supply", *rails_for(0.0, sequence.span_v))]
     for step in sequence.tests:
-        for point, vcm in zip(step.points, step.point_vcms(sequence.span_v), strict=True):
-            rails.append((f"common-mode point '{point}'", *rails_for(vcm, sequence.span_v)))
-        for span in step.spans_v:
-            rails.append((f"supply span {span:g} V", *rails_for(0.0, span)))
+        rails.extend(kind_of(step).rails(step, sequence.span_v))
     return rails
 
 
@@ -332,30 +324,5 @@ def check_bench_safety(sequence: Sequence, max_rail_v: float, compliance_a: floa
         raise ConfigError(where, f"supply.compliance {sequence.compliance_a * 1e3:g} mA is above the "
                                  f"bench's safety compliance of {compliance_a * 1e3:g} mA",
                           hint="lower supply.compliance in the sequence")
-    for step in sequence.steps("gain"):
-        for level in step.levels_v:
-            if abs(level) > FORCE_LEVEL_LIMIT_V:
-                raise ConfigError(where, f"gain level {level:g} V is beyond the force source's "
-                                         f"+-{FORCE_LEVEL_LIMIT_V:g} V", hint="use smaller levels")
-            if abs(level) >= sequence.span_v / 2:
-                raise ConfigError(where, f"gain level {level:g} V is outside the output swing of a "
-                                         f"{sequence.span_v:g} V span", hint="keep levels inside the rails")
-
-
-def check_region_coverage(sequence: Sequence, regions: tuple[Region, ...]) -> None:
-    """Refuse a sweep that leaves a limit-table region without enough points to compute its figure.
-
-    A slope region needs two points for a least-squares slope; a step region needs one.
-    """
-    from station.judge.measure import region_of, region_point_problems
-
-    for step in sequence.steps("cm_sweep"):
-        vcms = step.point_vcms(sequence.span_v)
-        where = {"line": step.line, "key": f"tests[{step.index - 1}]"}
-        for point, vcm in zip(step.points, vcms, strict=True):
-            if region_of(vcm, regions, sequence.span_v) is None:
-                raise ConfigError(sequence.source, f"common-mode point '{point}' lies outside every "
-                                  "region of the limit table", hint="remove it or widen the regions", **where)
-        problems = region_point_problems(vcms, regions, sequence.span_v)
-        if problems:
-            raise ConfigError(sequence.source, problems[0], hint="add points inside that region", **where)
+    for step in sequence.tests:
+        kind_of(step).check_safety(step, sequence)

@@ -2,7 +2,7 @@
 
 A `TestKind` lays out the rows its step logs (`lay_out`), runs the step on the parts of one
 handler index (`run`), and may name the rails it programs and refuse a plan before anything
-is powered (`rails`, `check`). Kinds that step the bench through conditions and read the loop
+is powered (`rails`, `check_safety`, `check`). Kinds that step the bench through conditions and read the loop
 offset at each (offset, common-mode sweep, gain, supply rejection) derive from `SweepKind`:
 they only say which conditions, and which figures follow from the readings.
 
@@ -99,6 +99,10 @@ class TestKind(ABC):
     def rails(self, step: TestStep, span_v: float) -> list[tuple[str, float, float]]:
         """Every (what, V+, V-) the step programs beyond the nominal supply, for the safety check."""
         return []
+
+    def check_safety(self, step: TestStep, sequence: TestSequence) -> None:
+        """Refuse (ConfigError) a step the bench must not run, beyond its rails. Nothing by default."""
+        return None
 
     def check(self, step: TestStep, sequence: TestSequence, context: KindContext) -> None:
         """Refuse (ConfigError) a step the limit table's regions cannot judge. Nothing by default."""

@@ -6,6 +6,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
+from station.config.files import ConfigError
 from station.config.rail_points import rails_for
 from station.config.test_catalog import StepRows
 from station.judge.measure import Figure, aol_figures
@@ -13,7 +14,10 @@ from station.kinds.base import KindContext, SweepKind
 from station.lot.sweep_order import Condition
 
 if TYPE_CHECKING:
+    from station.config.sequence import Sequence as TestSequence
     from station.config.sequence import TestStep
+
+FORCE_LEVEL_LIMIT_V = 10.0  # the force source's own range, per docs/bench-commands.md
 
 
 class OpenLoopGain(SweepKind):
@@ -31,3 +35,14 @@ class OpenLoopGain(SweepKind):
 
     def figures(self, step: TestStep, readings: Sequence[float], context: KindContext) -> list[Figure]:
         return aol_figures(list(step.levels_v), readings)
+
+    def check_safety(self, step: TestStep, sequence: TestSequence) -> None:
+        """Every level within the force source's range and inside the output swing."""
+        where = sequence.source
+        for level in step.levels_v:
+            if abs(level) > FORCE_LEVEL_LIMIT_V:
+                raise ConfigError(where, f"gain level {level:g} V is beyond the force source's "
+                                         f"+-{FORCE_LEVEL_LIMIT_V:g} V", hint="use smaller levels")
+            if abs(level) >= sequence.span_v / 2:
+                raise ConfigError(where, f"gain level {level:g} V is outside the output swing of a "
+                                         f"{sequence.span_v:g} V span", hint="keep levels inside the rails")

@@ -2,15 +2,11 @@
 
 from __future__ import annotations
 
-import textwrap
-
 import pytest
 
 from station.config.files import ConfigError
-from station.config.regions import fixed_region
 from station.config.sequence import (
     check_bench_safety,
-    check_region_coverage,
     load_sequence,
     parse_sequence,
 )
@@ -95,20 +91,3 @@ def test_safety_refuses_psrr_span_beyond_the_rails() -> None:
     text = GOOD + "  - kind: supply_rejection\n    spans: [8 V, 26 V]\n"
     with pytest.raises(ConfigError, match="supply span 26 V needs rails"):
         check_bench_safety(parse_sequence(text), max_rail_v=12.0, compliance_a=0.02)
-
-
-def test_region_with_too_few_points_is_a_sequence_error() -> None:
-    seq = parse_sequence(GOOD, "s.yaml")
-    regions = (fixed_region("low", "slope", -5.1, 3.4), fixed_region("transition", "step", 3.4, 4.0),
-               fixed_region("high", "slope", 4.0, 5.1))
-    with pytest.raises(ConfigError) as info:
-        check_region_coverage(seq, regions)
-    assert "region 'transition'" in str(info.value) and "needs at least 1" in str(info.value)
-    assert str(info.value).startswith("s.yaml:7:")  # the cm_sweep entry
-
-
-def test_point_outside_every_region_is_refused() -> None:
-    seq = parse_sequence(textwrap.dedent(GOOD).replace('"V+ + 0.1 V"', '"V+ + 0.5 V"'))
-    regions = (fixed_region("low", "slope", -5.1, 3.4), fixed_region("high", "slope", 3.4, 5.1))
-    with pytest.raises(ConfigError, match="outside every region"):
-        check_region_coverage(seq, regions)

@@ -172,6 +172,39 @@ def test_cm_sweep_check_refuses_a_point_outside_every_region() -> None:
         kind_of(step).check(step, sequence, KindContext(10.0, regions))
 
 
+def test_cm_sweep_check_refuses_a_region_without_enough_points() -> None:
+    text = textwrap.dedent("""\
+        sequence: s1
+        product: PX-401
+        supply: {span: 10 V}
+        tests:
+          - kind: cm_sweep
+            points: ["V- - 0.1 V", "mid", "V+ + 0.1 V"]
+        """)
+    sequence = parse_sequence(text, "s.yaml")
+    step = sequence.tests[0]
+    regions = (fixed_region("low", "slope", -5.1, 3.4), fixed_region("transition", "step", 3.4, 4.0),
+               fixed_region("high", "slope", 4.0, 5.1))
+    # No point between 3.4 V and 4.0 V: the crossover step cannot be measured.
+    with pytest.raises(ConfigError, match=r"s\.yaml:5: .*region 'transition' has 0 common-mode points; "
+                                          r"it needs at least 1"):
+        kind_of(step).check(step, sequence, KindContext(10.0, regions))
+
+
+def test_gain_kind_refuses_levels_outside_the_output_swing() -> None:
+    text = textwrap.dedent("""\
+        sequence: s1
+        product: PX-401
+        supply: {span: 10 V}
+        tests:
+          - kind: gain
+            levels: [-3 V, 5 V]
+        """)
+    sequence = parse_sequence(text, "s.yaml")
+    with pytest.raises(ConfigError, match="gain level 5 V is outside the output swing of a 10 V span"):
+        kind_of(sequence.tests[0]).check_safety(sequence.tests[0], sequence)
+
+
 class _HoldCurrent(TestKind):
     """A kind made up for this test: one figure, the supply current after a fixed hold."""
 

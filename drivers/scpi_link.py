@@ -317,12 +317,35 @@ class ScpiLink:
             raise InstrumentNotSent(self.role, self.resource, command,
                                     "not sent: the instrument closed the connection")
         if self._stale or state == "data":
-            # A late reply to an earlier, failed query would otherwise answer this one.
+            instrument = self._resynchronise(command)
+        return instrument
+
+    def _resynchronise(self, command: str) -> Any:
+        """Make sure no late reply to an earlier, failed query can answer the next one.
+
+        A raw socket has no device clear that reaches the instrument and no message ids, so
+        bytes of a late reply may still arrive after any local flush: the link opens a fresh
+        connection, which can never receive the old one's data. INSTR sessions (HiSLIP,
+        VXI-11, USBTMC, GPIB) have a real device clear, which discards the instrument's
+        output queue and pending input."""
+        self._stale = False
+        if _is_raw_socket(self.resource):
+            self.close()
+            self.reconnects += 1
             try:
-                instrument.clear()
-            except Exception:
-                pass
-            self._stale = False
+                self.open()
+            except InstrumentOpenError as exc:
+                self._stale = True
+                raise InstrumentNotSent(self.role, self.resource, command,
+                                        f"not sent: could not reconnect to resynchronise ({exc.detail})") from exc
+            return self._instrument
+        instrument = self._instrument
+        try:
+            instrument.clear()
+        except Exception as exc:  # a clear that fails leaves the link out of step: say so
+            self._stale = True
+            raise InstrumentNotSent(self.role, self.resource, command,
+                                    f"not sent: device clear failed ({exc})") from exc
         return instrument
 
     @contextmanager
@@ -401,6 +424,10 @@ def _socket_state(instrument: Any) -> str:
         return "closed" if sock.recv(1, socket.MSG_PEEK) == b"" else "data"
     except OSError:
         return "closed"
+
+
+def _is_raw_socket(resource: str) -> bool:
+    return resource.upper().endswith("::SOCKET")
 
 
 def _shorten(text: str, limit: int = 60) -> str:

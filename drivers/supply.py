@@ -27,6 +27,10 @@ class DualRailSupply:
         self.link = link
         self.max_rail_v = min(float(max_rail_v), INSTRUMENT_MAX_V)
         self.compliance_a = float(compliance_a)
+        # What the station last sent (not what a read-back said): the ramp-down starts here,
+        # because a read-back taken while the link is out of step may answer another query.
+        # Unknown (None) until the first setting goes out.
+        self.commanded: tuple[float, float] | None = None
 
     @property
     def role(self) -> str:
@@ -54,8 +58,10 @@ class DualRailSupply:
         if v_pos < v_neg:
             raise RequestRefused(self.role, "rails", f"V+ {v_pos:g} V, V- {v_neg:g} V",
                                  "V+ >= V-", "the rails would be reversed")
+        # Recorded before sending: a setting that may have arrived counts as commanded.
+        self.commanded = (v_pos, v_neg)
         self.link.write_and_wait(f"INST:NSEL 1;:VOLT {scpi_number(v_pos)};"
-                        f":INST:NSEL 2;:VOLT {scpi_number(v_neg)}")
+                                 f":INST:NSEL 2;:VOLT {scpi_number(v_neg)}")
 
     def rails(self) -> tuple[float, float]:
         """Programmed (V+, V-)."""
@@ -78,34 +84,44 @@ class DualRailSupply:
         return self.link.query_float(f"INST:NSEL {_channel(self.role, rail)};:MEAS:VOLT?")
 
     def ramp_down_and_off(self, steps: int = 5, step_delay_s: float = 0.02) -> None:
-        """Bring both rails to 0 V in `steps` steps, then turn both outputs off.
+        """Bring both rails to 0 V in `steps` steps, then turn both outputs off, then verify.
 
-        Every step is tried even if an earlier one fails (a lost reading must not leave the
-        rails up); the first failure is raised at the end.
+        The steps start from the levels the station last commanded, never from a read-back,
+        and only ever move towards zero. Every command is absolute, so sending it twice is
+        harmless. Every step is tried even if an earlier one fails (a lost reply must not
+        leave the rails up); the first failure is raised at the end.
         """
         failures: list[InstrumentError] = []
-        try:
-            start = self.rails()
-        except InstrumentError as exc:
-            failures.append(exc)
-            start = (0.0, 0.0)          # unknown levels: go straight to zero
-        for step in range(1, max(1, steps)):
-            fraction = 1.0 - step / max(1, steps)
+        start = self.commanded or (0.0, 0.0)   # unknown levels: go straight to zero
+        for v_pos, v_neg in ramp_towards_zero(start, steps):
             try:
-                self.set_rails(start[0] * fraction, start[1] * fraction)
+                self.set_rails(v_pos, v_neg)
             except RequestRefused:
                 pass                    # levels set outside our limits: skip to the next step
             except InstrumentError as exc:
                 failures.append(exc)
+                break                   # a failing link: go to the absolute zero at once
             time.sleep(step_delay_s)
-        attempt_each((lambda: self.set_rails(0.0, 0.0), lambda: self.outputs(False), self._confirm_off),
+        attempt_each((lambda: self.set_rails(0.0, 0.0), lambda: self.outputs(False), self.verify_off),
                      failures)
 
-    def _confirm_off(self) -> None:
-        # A query proves the instrument received the writes before it.
+    def verify_off(self) -> None:
+        """Read back that both outputs are off and programmed to 0 V (on a resynchronised link)."""
         if any(self.outputs_state()):
             raise InstrumentError(self.role, self.link.resource, "OUTP?",
                                   "still reports an output on after OUTP OFF")
+        levels = self.rails()
+        if any(abs(level) > 1e-3 for level in levels):
+            raise InstrumentError(self.role, self.link.resource, "VOLT?",
+                                  f"reads back V+ {levels[0]:g} V, V- {levels[1]:g} V after VOLT 0")
+
+
+def ramp_towards_zero(start: tuple[float, float], steps: int) -> list[tuple[float, float]]:
+    """Intermediate (V+, V-) levels from `start` to zero, each closer to zero than the last.
+
+    Zero itself is not in the list: the caller sends it as its own absolute command."""
+    count = max(1, steps)
+    return [(start[0] * (1.0 - k / count), start[1] * (1.0 - k / count)) for k in range(1, count)]
 
 
 def _channel(role: str, rail: str) -> int:

@@ -7,6 +7,7 @@ instrument's own message processing. After a dropped connection the server keeps
 
 from __future__ import annotations
 
+import select
 import socket
 import threading
 import time
@@ -122,7 +123,12 @@ class InstrumentServer:
             if faults.take_timeout():
                 sent = None
             else:
-                self.clock.sleep(faults.latency_s)
+                if faults.latency_s > 0:
+                    self.clock.sleep(faults.latency_s)
+                    if _peer_closed(conn):
+                        # The client gave up waiting and closed the session: the instrument
+                        # drops the rest of that session's input instead of running it later.
+                        return False
                 data = faults.garble(reply) if faults.take_garbage() else reply.encode("ascii")
                 try:
                     conn.sendall(data + b"\n")
@@ -132,6 +138,15 @@ class InstrumentServer:
             self.log(CommandRecord(self.instrument.role, self.clock.now(), time.time(),
                                    message, sent))
         return not faults.count_message(drop_armed)
+
+
+def _peer_closed(conn: socket.socket) -> bool:
+    """True once the client has closed its end (nothing more to read, ever)."""
+    try:
+        readable, _, _ = select.select([conn], [], [], 0)
+        return bool(readable) and conn.recv(1, socket.MSG_PEEK) == b""
+    except (OSError, ValueError):
+        return True
 
 
 def _close(conn: socket.socket) -> None:

@@ -19,6 +19,7 @@ from drivers.errors import InstrumentError, InstrumentOpenError
 from drivers.force import ForceSource
 from drivers.handler import ManualHandler, PartHandler
 from drivers.registry import DMM, FORCE, HANDLER, SUPPLY, SWITCH, DriverSettings, Role
+from drivers.retry import NO_RETRY
 from drivers.scpi_link import ScpiLink
 from drivers.supply import DualRailSupply
 from drivers.switch import FixtureSwitch
@@ -39,6 +40,7 @@ class Bench:
     dmms: list[LoopDmm]
     switch: FixtureSwitch
     handler: PartHandler
+    unverified: list[str] | None = None   # set by safe_state(): what could not be confirmed
 
     def all_links(self) -> dict[str, ScpiLink]:
         """role -> link of every SCPI instrument (a manual handler has none)."""
@@ -60,24 +62,39 @@ class Bench:
     def safe_state(self) -> list[str]:
         """Force to 0 V and off, then both rails down and off, then every relay open.
 
-        Each step is tried even if an earlier one failed; a step that still fails after the
-        link's own retries is tried once more after reconnecting. Returns one line per step:
-        "role: action: ok" or "role: action: FAILED: why".
+        Each step is tried even if an earlier one failed, with short timeouts and no resends
+        beyond one reconnect, so an instrument that does not answer is reported within
+        seconds and the others are still made safe. Each step ends with a read-back on a
+        resynchronised link. Returns one line per step; `unverified` lists, in words an
+        operator acts on, what could not be confirmed (empty: the bench is safe).
         """
         log: list[str] = []
+        self.unverified = []
 
         def open_relays() -> None:
             self.switch.open_all()
             self.switch.confirm_open()
 
-        steps: list[tuple[ScpiLink, str, Callable[[], None]]] = [
-            (self.force.link, "level 0 V and output off", self.force.zero_and_off),
-            (self.supply.link, "rails ramped to 0 V and outputs off", self.supply.ramp_down_and_off),
-            (self.switch.link, "all relays open", open_relays),
+        steps: list[tuple[ScpiLink, str, Callable[[], None], str]] = [
+            (self.force.link, "level 0 V and output off", self.force.zero_and_off,
+             "force output may still be live: switch it off at the instrument"),
+            (self.supply.link, "rails ramped to 0 V and outputs off", self.supply.ramp_down_and_off,
+             "supply outputs may still be live: switch off at the instrument"),
+            (self.switch.link, "all relays open", open_relays,
+             "fixture relays may still be closed: switch the supply off at the instrument "
+             "before touching a site"),
         ]
-        for link, action, step in steps:
-            log.append(f"{link.role}: {action}: {_attempt(link, step)}")
+        for link, action, step, warning in steps:
+            outcome = _attempt(link, step)
+            if outcome.startswith("NOT VERIFIED"):
+                self.unverified.append(f"{link.role}: {warning}")
+            log.append(f"{link.role}: {action}: {outcome}")
         return log
+
+    @property
+    def is_safe(self) -> bool:
+        """True once a safe state ran and every step was confirmed by read-back."""
+        return self.unverified == []
 
     def close(self) -> None:
         for link in self.all_links().values():
@@ -93,22 +110,33 @@ class Bench:
             self.close()
 
 
+# A safe-state transaction waits at most this long for a reply: an instrument that is silent
+# for longer is reported, not waited for (the old default, 5 s x 3 tries x every command,
+# let one slow supply hold the way out for minutes).
+SAFE_STATE_TIMEOUT_S = 2.0
+
+
 def _attempt(link: ScpiLink, step: Callable[[], None]) -> str:
-    """Run one safe-state step; after any instrument failure reconnect and run it once more."""
-    retried_before = link.retries
+    """Run one safe-state step; after an instrument failure reconnect and run it once more.
+
+    "ok", "ok after ..." or "NOT VERIFIED: why"."""
+    saved = link.timeout_s, link.retry
+    link.timeout_s, link.retry = min(saved[0], SAFE_STATE_TIMEOUT_S), NO_RETRY
     try:
-        step()
-    except InstrumentError as first:
         try:
-            link.reconnect()
             step()
-            return f"ok after reconnecting ({first})"
-        except Exception as again:  # the way out must never stop half-way
-            return f"FAILED: {again}"
-    except Exception as exc:
-        return f"FAILED: {exc}"
-    retried = link.retries - retried_before
-    return f"ok after {retried} retried transaction(s)" if retried else "ok"
+        except InstrumentError as first:
+            try:
+                link.reconnect()
+                step()
+                return f"ok after reconnecting ({first})"
+            except Exception as again:  # the way out must never stop half-way
+                return f"NOT VERIFIED: {again}"
+        except Exception as exc:
+            return f"NOT VERIFIED: {exc}"
+        return "ok"
+    finally:
+        link.timeout_s, link.retry = saved
 
 
 def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,

@@ -65,6 +65,7 @@ def as_click_error(exc: StationError) -> click.ClickException:
     """The error as click prints it ("Error: ..." on stderr), with the tree's exit code."""
     import click
 
-    error = click.ClickException(one_line(str(exc)))
-    error.exit_code = exc.exit_code
-    return error
+    class StationClickError(click.ClickException):
+        exit_code = exc.exit_code
+
+    return StationClickError(one_line(str(exc)))

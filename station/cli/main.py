@@ -1,9 +1,11 @@
 """The `station` command: screen lots on a bench, dry-run them on the simulated bench, review them.
 
-Exit codes scripts can rely on: 0 done; 2 refused input (a bad file or option: nothing was
-powered and nothing written); 3 the lot was stopped (instrument failure, Ctrl-C, SIGTERM:
-the bench was put in its safe state and the datalog holds every finished part); 1 the
-station itself failed (a bug, a full disk): also after the safe state, with one line saying why.
+Exit codes scripts can rely on (station/errors.py, docs/exit-codes.md): 0 done; 2 refused
+input (a bad file, option or folder: nothing was powered and nothing written); 3 the lot was
+stopped (instrument failure, Ctrl-C, SIGTERM: the bench was put in its safe state and the
+datalog holds every finished part); 1 the station itself failed (a bug, a full disk): also
+after the safe state, with one line saying why. Every StationError that leaves a command is
+turned into its one line and exit code here, in StationGroup.
 """
 
 from __future__ import annotations
@@ -23,25 +25,27 @@ from rich.console import Console
 from drivers.errors import InstrumentError, RequestRefused
 from station import __version__
 from station.config.files import ConfigError
+from station.datalog.folder import SAFE_NAME_CHARS, is_safe_folder_name
 from station.datalog.resume import ResumeState
-from station.datalog.writer import DatalogError, DatalogWriter
+from station.datalog.writer import DatalogWriter
 from station.demo import DEMO_LIMITS, DEMO_SEQUENCE
+from station.errors import (
+    EXIT_OK,
+    EXIT_SOFTWARE,
+    EXIT_STOPPED,
+    Refused,
+    StationError,
+    as_click_error,
+    one_line,
+)
 from station.lot.stop_signals import LotInterrupted, raise_interrupted, signals_deferred
 
-EXIT_SOFTWARE = 1
-EXIT_REFUSED = 2
-EXIT_STOPPED = 3
 DEFAULT_MAX_FAULTS = 3
 
 
-class Refused(click.ClickException):
-    """Bad input: one clear line, exit 2, nothing powered."""
-
-    exit_code = EXIT_REFUSED
-
-
 class StationGroup(click.Group):
-    """Any error that is not a refused input still comes out as one line (exit 1), not a trace."""
+    """Every error comes out as one line with the exit code of station/errors.py, never a trace:
+    a StationError with its own code (refused input 2, stopped 3), anything else 1."""
 
     def invoke(self, ctx: click.Context):
         try:
@@ -52,10 +56,12 @@ class StationGroup(click.Group):
             click.echo("stopped by Ctrl-C", err=True)
             sys.exit(EXIT_STOPPED)
         except LotInterrupted as exc:
-            click.echo(str(exc), err=True)
+            click.echo(one_line(str(exc)), err=True)
             sys.exit(EXIT_STOPPED)
+        except StationError as exc:
+            raise as_click_error(exc) from None
         except Exception as exc:
-            click.echo(f"station error: {type(exc).__name__}: {exc}", err=True)
+            click.echo(one_line(f"station error: {type(exc).__name__}: {exc}"), err=True)
             sys.exit(EXIT_SOFTWARE)
 
 
@@ -86,13 +92,13 @@ class LotJob:
     seated: Callable[[int, str | None], None] | None = None
 
 
-def _run_lot(job: LotJob, console: Console, after: Callable[[Path], None] | None = None) -> int:
+def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None = None) -> int:
     """Plan, open the bench, run the lot with progress, print the summary. Returns the exit code.
 
     SIGTERM stops the lot the way Ctrl-C does; both, and any error, end in the safe state."""
     previous = signal.signal(signal.SIGTERM, raise_interrupted)
     try:
-        return _plan_and_run(job, console, after)
+        return _plan_and_run(job, console, write_truth)
     except (LotInterrupted, KeyboardInterrupt) as exc:
         # Before the lot loop (opening the bench): nothing was powered yet.
         _say(console, f"stopped before the lot started: {exc or 'Ctrl-C'}", "bold red")
@@ -101,7 +107,7 @@ def _run_lot(job: LotJob, console: Console, after: Callable[[Path], None] | None
         signal.signal(signal.SIGTERM, previous)
 
 
-def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] | None) -> int:
+def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None) -> int:
     from station.cli.lot_console import LotProgress, bin_summary, lot_line
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
@@ -109,11 +115,8 @@ def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] |
 
     live: list[LotProgress] = []   # the progress bar, once it runs: paused at every prompt
 
-    try:
-        plan = build_plan(job.bench_path, job.sequence_path, job.limits_path)
-        writer = DatalogWriter(job.out, force=job.force, resume=job.resume)
-    except (ConfigError, DatalogError) as exc:
-        raise Refused(str(exc)) from None
+    plan = build_plan(job.bench_path, job.sequence_path, job.limits_path)   # refused: ConfigError
+    writer = DatalogWriter(job.out, force=job.force, resume=job.resume)      # refused: DatalogError
     try:
         bench = open_bench(plan.bench, ask=lambda text: _ask_operator(text, live), seated=job.seated)
     except (InstrumentError, RequestRefused) as exc:
@@ -128,23 +131,27 @@ def _plan_and_run(job: LotJob, console: Console, after: Callable[[Path], None] |
             runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"))
             tally = runner.run()
-        with signals_deferred():       # the end-of-lot files are written whole
-            if after is not None and tally.stop_code != EXIT_SOFTWARE:
-                after(job.out)
+        with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:
-                _close_datalog(job.out, job.stdf, console)
+                _seal(job.out, job.stdf, write_truth, console)
     finally:
         bench.close()
     for table in bin_summary(tally, plan.table):
         console.print(table)
     console.print(lot_line(tally))
     _say(console, "safe state: " + "; ".join(runner.safe_state_log))
+    for warning in bench.unverified or []:
+        _say(console, f"WARNING: {warning}", "bold red")
+    safe_words = "bench in safe state" if bench.is_safe else "bench NOT confirmed safe (see WARNING above)"
     _say(console, f"datalog: {job.out}")
     if tally.stopped_because:
-        _say(console, f"lot stopped: {tally.stopped_because}; bench in safe state", "bold red")
+        _say(console, f"lot stopped: {tally.stopped_because}; {safe_words}", "bold red")
         _say(console, f"resume it with: station {job.mode} --resume {job.out} ...")
         return tally.stop_code or EXIT_STOPPED
-    return 0
+    if not bench.is_safe:
+        _say(console, f"lot complete, but {safe_words}", "bold red")
+        return EXIT_STOPPED
+    return EXIT_OK
 
 
 def _ask_operator(text: str, live: list) -> str:
@@ -169,14 +176,26 @@ def _tell_resume(state: ResumeState, console: Console) -> None:
                   + (f"; retesting {', '.join(state.interrupted)}" if state.interrupted else ""))
 
 
-def _close_datalog(out: Path, stdf: bool, console: Console) -> None:
-    """End-of-lot files: the binary STDF if asked, then the manifest over everything."""
-    from station.datalog.manifest import write_manifest
-    from station.datalog.stdf_export import write_stdf
+def _seal(out: Path, stdf: bool, write_truth: Callable[[Path], None] | None, console: Console) -> None:
+    """The end-of-lot files after lot.json, in order, the manifest (the seal) last: a kill
+    part-way is finished by `--resume` (station/datalog/seal.py)."""
+    from station.datalog.seal import seal_datalog
 
-    if stdf:
-        console.print(f"STDF V4: {write_stdf(out)}")
-    write_manifest(out)
+    written = seal_datalog(out, stdf=stdf, write_truth=write_truth)
+    if "lot.stdf" in written:
+        console.print(f"STDF V4: {out / 'lot.stdf'}")
+
+
+def _seal_ended_lot(state: ResumeState, stdf: bool, write_truth: Callable[[Path], None] | None) -> int:
+    """--resume of a lot that reached its end but was killed before its seal: finish the seal,
+    test nothing, power nothing."""
+    console = Console()
+    _tell_resume(state, console)
+    _say(console, f"lot {state.header.get('lot_id')} reached its end but its datalog was not sealed "
+                  "(stopped during the lot end): sealing it; nothing is tested")
+    _seal(state.folder, stdf, write_truth, console)
+    _say(console, f"datalog: {state.folder} (sealed)")
+    return EXIT_OK
 
 
 def _inspect_resume(folder: Path, out: Path | None, force: bool, mode: str, sequence: Path, limits: Path,
@@ -188,10 +207,7 @@ def _inspect_resume(folder: Path, out: Path | None, force: bool, mode: str, sequ
         raise Refused("--resume continues the lot in its own folder: leave out --out")
     if force:
         raise Refused("--resume and --force do not go together: --force starts a new lot")
-    try:
-        return inspect_resume(folder, mode=mode, sequence=sequence, limits=limits, lot_id=lot_id)
-    except DatalogError as exc:
-        raise Refused(str(exc)) from None
+    return inspect_resume(folder, mode=mode, sequence=sequence, limits=limits, lot_id=lot_id)
 
 
 def _lot_id(value: str | None, option: str = "--lot") -> str | None:
@@ -199,9 +215,23 @@ def _lot_id(value: str | None, option: str = "--lot") -> str | None:
         return None
     if not value.strip():
         raise Refused(f"{option} must not be empty (give the lot id, e.g. --lot LOT-0042)")
-    if any(c in value for c in ",\n\r"):
-        raise Refused(f"{option} {value!r}: a lot id cannot hold commas or line breaks")
+    if "," in value or not value.isprintable():
+        raise Refused(f"{option} {value!r}: a lot id cannot hold commas, line breaks or control characters")
     return value.strip()
+
+
+def _operator(value: str) -> str:
+    if not value.isprintable():
+        raise Refused(f"--operator {value!r}: an operator name cannot hold line breaks or control characters")
+    return value.strip()
+
+
+def _default_out(lot_id: str) -> Path:
+    """datalogs/<lot id>, only for a lot id that is a plain folder name (never a path)."""
+    if not is_safe_folder_name(lot_id):
+        raise Refused(f"--lot {lot_id!r}: cannot name the datalog folder datalogs/<lot id>: a lot id used "
+                      f"as a folder name may hold {SAFE_NAME_CHARS} (or give --out DIR)")
+    return Path("datalogs") / lot_id
 
 
 _MAX_FAULTS = click.option(
@@ -245,16 +275,21 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
 
     console = Console()
     lot_id = _lot_id(lot_id)
+    operator = _operator(operator)
+    if lot_id is not None and out is None and resume_dir is None:
+        _default_out(lot_id)          # refused before anything starts
     settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
     resume = None
     if resume_dir is not None:
         resume = _inspect_resume(resume_dir, out, force, "dry-run", sequence_path, limits_path, lot_id)
         _resumed_sim_settings(ctx, resume, settings)
+        if resume.ended:
+            sys.exit(_seal_ended_lot(resume, stdf, SimBench(settings).write_truth))
         user_bench = _bench_copy(resume_dir)
         out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
     lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
-    out = out or Path("datalogs") / lot_id
+    out = out or _default_out(lot_id)
     extra = {"dry_run": {key: getattr(settings, key) for key in _SIM_KEYS}}
     with SimBench(settings) as sim, tempfile.TemporaryDirectory() as temp:
         sim.start()
@@ -272,7 +307,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
                      settings.parts, stdf, resume, max_faults, extra, seated=seat)
         try:
-            code = _run_lot(job, console, after=lambda folder: sim.write_truth(folder / "sim_truth.csv"))
+            code = _run_lot(job, console, write_truth=sim.write_truth)
         finally:
             if seat is not None:
                 seat.close()
@@ -351,9 +386,12 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
         max_faults: int) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
     lot_id = _lot_id(lot_id)
+    operator = _operator(operator)
     resume = None
     if resume_dir is not None:
         resume = _inspect_resume(resume_dir, out, force, "run", sequence_path, limits_path, lot_id)
+        if resume.ended:
+            sys.exit(_seal_ended_lot(resume, stdf, None))
         out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
         operator = operator or str(resume.header.get("operator", ""))
     if lot_id is None:

@@ -217,17 +217,20 @@ def read_rows(path: Path, *, torn: str = "refuse") -> tuple[list[list[str]], int
         lines = text.count("\n") + 1
         raise DatalogError(f"torn last line ({dropped} bytes after the last line break)", path=path,
                            line=lines, hint="resume the lot with --resume, which drops it")
-    rows = list(csv.reader(io.StringIO(text[:end], newline="")))
-    if not rows:
+    reader = csv.reader(io.StringIO(text[:end], newline=""))
+    first = next(reader, None)
+    if first is None:
         raise DatalogError("empty: no column header line", path=path)
-    if rows[0] != columns:
-        missing = [c for c in columns if c not in rows[0]]
+    if first != columns:
+        missing = [c for c in columns if c not in first]
         what = (f"missing column(s) {', '.join(missing)}" if missing
                 else f"the first line is not the {path.name} column header")
         raise DatalogError(what, path=path, line=1, hint="see docs/datalog-format.md")
-    body = rows[1:]
-    for number, row in enumerate(body, start=2):
-        check_row(path, number, row, columns, cells)
+    body = []
+    for row in reader:
+        if row:                       # a blank line holds no row (as every CSV reader takes it)
+            check_row(path, reader.line_num, row, columns, cells)
+            body.append(row)
     return body, dropped
 
 
@@ -321,7 +324,8 @@ def _split_repeated_tests(block: np.ndarray, tests: np.ndarray, split: np.ndarra
     """Blocks of the `split` rows cut where a test number comes again (rare: a part retested
     on the same site right after itself), so Python loops over those rows only."""
     run = np.zeros(len(block), dtype=np.int64)
-    current, number, seen = -1, 0, set()
+    current, number = -1, 0
+    seen: set[Any] = set()
     for i in np.flatnonzero(split):
         if block[i] != current:
             current, number, seen = block[i], 0, set()

@@ -7,23 +7,25 @@ is written in one canonical layout, so a change of any one byte in it is caught 
 
 from __future__ import annotations
 
-import hashlib
 import json
-import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-MANIFEST_NAME = "manifest.json"
+from station.datalog.folder import (
+    CONFIG_COPIES,
+    LOT_JSON,
+    MANIFEST,
+    DatalogError,
+    sha256_of,
+    sha256_of_text,
+    write_atomically,
+)
+
+MANIFEST_NAME = MANIFEST
 MANIFEST_FORMAT = "ampscreen-manifest/1"
-# lot.json entries whose recorded sha256 must match the copy kept in the folder.
-CONFIG_COPIES = ("sequence", "limits", "bench")
 _SELF_HASH = "manifest_sha256"
-
-
-class NotADatalogError(Exception):
-    """The folder is not a datalog at all (no lot.json and no manifest.json)."""
 
 
 @dataclass
@@ -50,14 +52,6 @@ class VerifyReport:
                 + list(self.problems))
 
 
-def file_sha256(path: Path) -> str:
-    digest = hashlib.sha256()
-    with path.open("rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
-
 def _folder_files(folder: Path) -> list[str]:
     """Every file below `folder` except the manifest, as sorted POSIX relative paths."""
     names = [p.relative_to(folder).as_posix() for p in folder.rglob("*") if p.is_file()]
@@ -70,16 +64,14 @@ def _canonical(content: dict[str, Any]) -> str:
 
 def _self_hash(content: dict[str, Any]) -> str:
     body = {k: v for k, v in content.items() if k != _SELF_HASH}
-    return hashlib.sha256(_canonical(body).encode("utf-8")).hexdigest()
+    return sha256_of_text(_canonical(body))
 
 
 def _write(folder: Path, content: dict[str, Any]) -> Path:
     content = {k: v for k, v in content.items() if k != _SELF_HASH}
     content[_SELF_HASH] = _self_hash(content)
     path = folder / MANIFEST_NAME
-    partial = folder / (MANIFEST_NAME + ".partial")
-    partial.write_text(_canonical(content), encoding="utf-8")
-    os.replace(partial, path)
+    write_atomically(path, _canonical(content))
     return path
 
 
@@ -92,7 +84,7 @@ def write_manifest(datalog_dir: Path) -> Path:
     """Write manifest.json listing sha256 and size of every other file in the folder."""
     folder = Path(datalog_dir)
     written, written_t = _utc_now()
-    files = {name: {"sha256": file_sha256(folder / name), "size": (folder / name).stat().st_size}
+    files = {name: {"sha256": sha256_of(folder / name), "size": (folder / name).stat().st_size}
              for name in _folder_files(folder)}
     return _write(folder, {"format": MANIFEST_FORMAT, "written": written,
                            "written_t": written_t, "files": files})
@@ -107,7 +99,7 @@ def record_file(datalog_dir: Path, name: str, by: str) -> Path:
     folder = Path(datalog_dir)
     content = _load_manifest(folder)
     path = folder / name
-    entry = {"sha256": file_sha256(path), "size": path.stat().st_size}
+    entry = {"sha256": sha256_of(path), "size": path.stat().st_size}
     if content["files"].get(name) == entry:
         return folder / MANIFEST_NAME  # already recorded as it is
     content["files"][name] = entry
@@ -133,27 +125,29 @@ def _load_manifest(folder: Path) -> dict[str, Any]:
     return content
 
 
-def _check_config_copies(folder: Path, report: VerifyReport) -> None:
-    """lot.json records the sha256 of each configuration file applied; compare the copies."""
+def check_config_copies(folder: Path) -> list[str]:
+    """lot.json records the sha256 of each configuration file applied; compare the copies.
+    One line per problem (none if lot.json is missing: the manifest check reports that)."""
     try:
-        lot = json.loads((folder / "lot.json").read_text(encoding="utf-8"))
+        lot = json.loads((folder / LOT_JSON).read_text(encoding="utf-8"))
     except FileNotFoundError:
-        return  # reported as missing by the manifest check
+        return []
     except (UnicodeDecodeError, json.JSONDecodeError):
-        report.problems.append("lot.json: not valid JSON (damaged or edited)")
-        return
+        return ["lot.json: not valid JSON (damaged or edited)"]
+    problems = []
     for key in CONFIG_COPIES:
         entry = lot.get(key) if isinstance(lot, dict) else None
         if not isinstance(entry, dict) or not entry.get("sha256"):
-            report.problems.append(f"lot.json: no recorded sha256 for the {key} file")
+            problems.append(f"lot.json: no recorded sha256 for the {key} file")
             continue
         name = str(entry.get("file") or f"{key}.yaml")
         copy = folder / name
         if not copy.is_file():
-            report.problems.append(f"{name}: copy of the {key} file is missing")
-        elif file_sha256(copy) != entry["sha256"]:
-            report.problems.append(f"{name}: sha256 differs from the one lot.json recorded "
-                                   f"for the {key} file that was applied")
+            problems.append(f"{name}: copy of the {key} file is missing")
+        elif sha256_of(copy) != entry["sha256"]:
+            problems.append(f"{name}: sha256 differs from the one lot.json recorded "
+                            f"for the {key} file that was applied")
+    return problems
 
 
 def verify_datalog(datalog_dir: Path) -> VerifyReport:
@@ -161,11 +155,13 @@ def verify_datalog(datalog_dir: Path) -> VerifyReport:
     folder = Path(datalog_dir)
     has_manifest = (folder / MANIFEST_NAME).is_file()
     if not folder.is_dir() or not (has_manifest or (folder / "lot.json").is_file()):
-        raise NotADatalogError(f"{folder}: not a datalog folder (no lot.json or {MANIFEST_NAME})")
+        raise DatalogError(f"not a datalog folder (no lot.json or {MANIFEST_NAME})", path=folder,
+                           hint="give a datalog folder written with --out")
     report = VerifyReport(folder)
     present = set(_folder_files(folder))
     if not has_manifest:
-        report.problems.append(f"{MANIFEST_NAME}: missing (lot not ended, or the file was lost)")
+        report.problems.append(f"{MANIFEST_NAME}: missing (the lot has not ended, was stopped during its end, "
+                               "or the file was lost; `station verify --seal` seals a lot that ended)")
     else:
         try:
             listed: dict[str, Any] = _load_manifest(folder)["files"]
@@ -180,9 +176,9 @@ def verify_datalog(datalog_dir: Path) -> VerifyReport:
             report.checked += 1
             entry = listed[name]
             if (not isinstance(entry, dict) or path.stat().st_size != entry.get("size")
-                    or file_sha256(path) != entry.get("sha256")):
+                    or sha256_of(path) != entry.get("sha256")):
                 report.changed.append(name)
         if listed or not report.problems:
             report.added = sorted(present - set(listed))
-    _check_config_copies(folder, report)
+    report.problems.extend(check_config_copies(folder))
     return report

@@ -1,43 +1,61 @@
 """Continuing an interrupted lot in its own datalog folder (`--resume DIR`).
 
 `inspect_resume` reads the folder without changing it and refuses, with one line, a folder
-that is not a datalog, a finished lot, another mode or lot id, or sequence/limit files that
-are not the ones the lot started with (SHA-256 in lot.json). It works out what survives:
+that is not a datalog, a sealed finished lot, another mode or lot id, sequence/limit files
+that are not the ones the lot started with (SHA-256 in lot.json), or a row that does not fit
+the format (file:line: column: what). It works out what survives:
 
 - a torn last line of results.csv or parts.csv (the process died inside a write) is dropped;
 - the rows written after the in_progress.json marker (the index that was under test) are
   dropped, and the marker's parts are retested (RETEST=1);
-- result rows of a part with no parts.csv row are dropped (the part is retested).
+- result rows after the last part row's results (a part row is the commit record of its
+  results) are the part that was in progress: dropped, and the part retested.
+
+A lot that reached its end (lot.json complete) but has no manifest.json was killed during
+the end-of-lot commit: the state says `ended`, and the caller seals it
+(station/datalog/seal.py) instead of testing anything.
 
 `ResumeState.apply()` then rewrites the two CSV files with the whole parts only; the writer
-appends after them. Format: docs/datalog-format.md.
+appends after them. Format: station/datalog/folder.py and docs/datalog-format.md.
 """
 
 from __future__ import annotations
 
-import csv
-import io
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from station.datalog.writer import (
-    FORMAT,
+import numpy as np
+
+from station.datalog.folder import (
+    MANIFEST,
     MARKER,
     PART_COLUMNS,
+    PARTS_CSV,
     RESULT_COLUMNS,
+    RESULTS_CSV,
     DatalogError,
+    csv_text,
+    match_results_to_parts,
+    read_lot_header,
+    read_rows,
     sha256_of,
-    write_durably,
+    write_atomically,
 )
 
 _P = {name: i for i, name in enumerate(PART_COLUMNS)}
 _R = {name: i for i, name in enumerate(RESULT_COLUMNS)}
 
+# The one error type of the datalog folder; this name is kept for the callers that use it.
+ResumeRefused = DatalogError
 
-class ResumeRefused(DatalogError):
-    """The folder cannot be resumed with these files (one line: what and how to fix)."""
+
+def part_fields(row: list[str]) -> tuple[str, int, int, str, str, str]:
+    """(PART_ID, HARD_BIN, SOFT_BIN, GRADE, PASS, RETEST) of a parts.csv row, by column name
+    (the cells of PASS and RETEST as text: '' / '0' / '1')."""
+    return (row[_P["PART_ID"]], int(row[_P["HARD_BIN"]]), int(row[_P["SOFT_BIN"]]), row[_P["GRADE"]],
+            row[_P["PASS"]], row[_P["RETEST"]])
 
 
 @dataclass
@@ -49,6 +67,7 @@ class ResumeState:
     interrupted: list[str] = field(default_factory=list)   # ids under test when it stopped
     presented_before: int = 0      # parts the handler had presented before that index
     warnings: list[str] = field(default_factory=list)
+    ended: bool = False            # the lot reached its end; only its seal is missing
 
     @property
     def seen_ids(self) -> set[str]:
@@ -62,66 +81,68 @@ class ResumeState:
 
     def apply(self) -> None:
         """Rewrite results.csv and parts.csv with the surviving rows (atomically, fsync'ed)."""
-        write_durably(self.folder / "results.csv", _csv_text(RESULT_COLUMNS, self.result_rows))
-        write_durably(self.folder / "parts.csv", _csv_text(PART_COLUMNS, self.part_rows))
+        write_atomically(self.folder / RESULTS_CSV, csv_text(self.result_rows, RESULT_COLUMNS))
+        write_atomically(self.folder / PARTS_CSV, csv_text(self.part_rows, PART_COLUMNS))
 
 
 def inspect_resume(folder: Path, *, mode: str, sequence: Path, limits: Path,
                    lot_id: str | None = None) -> ResumeState:
-    """Everything a resumed lot needs from `folder`; ResumeRefused if it cannot be resumed."""
+    """Everything a resumed lot needs from `folder`; DatalogError if it cannot be resumed."""
     folder = Path(folder)
     header = _read_header(folder)
-    if header.get("complete"):
-        raise ResumeRefused(f"{folder}: the lot ran to its end (lot.json complete: true); "
-                            "nothing to resume: start a new lot in another --out")
+    ended = bool(header.get("complete"))
+    if ended and (folder / MANIFEST).exists():
+        raise DatalogError("the lot ran to its end (lot.json complete: true, sealed by manifest.json); "
+                           "nothing to resume", path=folder, hint="start a new lot in another --out")
     if header.get("mode") != mode:
-        raise ResumeRefused(f"{folder}: this lot was a {header.get('mode')!r} lot; resume it with "
-                            f"`station {header.get('mode')} --resume`")
+        raise DatalogError(f"this lot was a {header.get('mode')!r} lot", path=folder,
+                           hint=f"resume it with `station {header.get('mode')} --resume`")
     if lot_id is not None and lot_id != header.get("lot_id"):
-        raise ResumeRefused(f"{folder}: holds lot {header.get('lot_id')!r}, not {lot_id!r} "
-                            "(give the lot id it was started with, or another folder)")
+        raise DatalogError(f"holds lot {header.get('lot_id')!r}, not {lot_id!r}", path=folder,
+                           hint="give the lot id it was started with, or another folder")
     for key, given in (("sequence", sequence), ("limits", limits)):
         _check_same_file(folder, header, key, Path(given))
     warnings: list[str] = []
-    parts = _read_rows(folder / "parts.csv", PART_COLUMNS, warnings)
-    results = _read_rows(folder / "results.csv", RESULT_COLUMNS, warnings)
+    torn = "refuse" if ended else "drop"   # an ended lot closed its files whole
+    parts = _read(folder / PARTS_CSV, torn, warnings)
+    results = _read(folder / RESULTS_CSV, torn, warnings)
     interrupted: list[str] = []
     presented_before = len({row[_P["PART_ID"]] for row in parts})
-    marker = _read_marker(folder, header)
+    marker = None if ended else _read_marker(folder, header)
     if marker is not None:
         interrupted = [str(i) for i in marker["ids"]]
         keep_parts, keep_results = int(marker["parts_rows"]), int(marker["results_rows"])
         if keep_parts > len(parts) or keep_results > len(results):
-            raise ResumeRefused(f"{folder}/{MARKER}: says {keep_parts} part rows and {keep_results} "
-                                f"result rows were on disk, but the files hold fewer: the datalog "
-                                "was changed by hand; it cannot be resumed")
+            raise DatalogError(f"says {keep_parts} part rows and {keep_results} result rows were on disk, "
+                               "but the files hold fewer: the datalog was changed by hand; it cannot be "
+                               "resumed", path=folder / MARKER)
         dropped = len(parts) - keep_parts
         if dropped or len(results) > keep_results:
             warnings.append(f"dropped {dropped} part row(s) and {len(results) - keep_results} result "
                             f"row(s) of the index under test when the lot stopped ({', '.join(interrupted)})")
         parts, results = parts[:keep_parts], results[:keep_results]
         presented_before = int(marker["presented_before"])
-    results, orphans = _whole_parts_only(parts, results, warnings)
+    results, orphans = _whole_parts_only(folder, parts, results, warnings)
+    if ended and orphans:
+        raise DatalogError(f"result rows of part(s) {', '.join(orphans)} have no parts.csv row, in a lot "
+                           "that ended: the datalog is damaged", path=folder / RESULTS_CSV)
     interrupted += [pid for pid in orphans if pid not in interrupted]
-    return ResumeState(folder, header, parts, results, interrupted, presented_before, warnings)
+    return ResumeState(folder, header, parts, results, interrupted, presented_before, warnings, ended)
 
 
 def _read_header(folder: Path) -> dict[str, Any]:
-    path = folder / "lot.json"
-    if not folder.is_dir():
-        raise ResumeRefused(f"--resume {folder}: no such folder (give the datalog folder of the lot)")
-    if not path.exists():
-        raise ResumeRefused(f"--resume {folder}: not a datalog folder (no lot.json)")
-    try:
-        header = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError) as exc:
-        raise ResumeRefused(f"{path}: cannot be read as JSON ({exc}); it cannot be resumed") from None
-    if not isinstance(header, dict) or header.get("format") != FORMAT:
-        raise ResumeRefused(f"{path}: not a {FORMAT} lot header; it cannot be resumed")
-    for name in ("parts.csv", "results.csv"):
+    header = read_lot_header(folder)
+    for name in (PARTS_CSV, RESULTS_CSV):
         if not (folder / name).exists():
-            raise ResumeRefused(f"--resume {folder}: not a datalog folder (no {name})")
+            raise DatalogError(f"not a datalog folder (no {name})", path=folder)
     return header
+
+
+def _read(path: Path, torn: str, warnings: list[str]) -> list[list[str]]:
+    rows, dropped = read_rows(path, torn=torn)
+    if dropped:  # every row ends in a newline; bytes after the last one are half a row
+        warnings.append(f"{path.name}: dropped a torn last line ({dropped} bytes)")
+    return rows
 
 
 def _check_same_file(folder: Path, header: dict[str, Any], key: str, given: Path) -> None:
@@ -129,33 +150,10 @@ def _check_same_file(folder: Path, header: dict[str, Any], key: str, given: Path
     try:
         digest = sha256_of(given)
     except OSError as exc:
-        raise ResumeRefused(f"--{key} {given}: cannot be read ({exc.strerror})") from None
+        raise DatalogError(f"cannot be read ({exc.strerror})", path=f"--{key} {given}") from None
     if digest != recorded.get("sha256"):
-        raise ResumeRefused(f"--{key} {given}: is not the {key} file this lot started with "
-                            f"(SHA-256 differs from {folder}/lot.json; its copy is {folder}/{key}.yaml)")
-
-
-def _read_rows(path: Path, columns: list[str], warnings: list[str]) -> list[list[str]]:
-    try:
-        text = path.read_text(encoding="utf-8", errors="replace")
-    except OSError as exc:
-        raise ResumeRefused(f"{path}: cannot be read ({exc.strerror})") from None
-    end = text.rfind("\n") + 1
-    if end < len(text):  # every row ends in a newline; bytes after the last one are half a row
-        warnings.append(f"{path.name}: dropped a torn last line ({len(text) - end} bytes)")
-        text = text[:end]
-    rows = list(csv.reader(io.StringIO(text, newline="")))
-    if not rows:
-        return []
-    if rows[0] != columns:
-        raise ResumeRefused(f"{path}: the first line is not the {path.name} column header; "
-                            "it cannot be resumed")
-    body = rows[1:]
-    for number, row in enumerate(body, start=2):
-        if len(row) != len(columns):
-            raise ResumeRefused(f"{path}:{number}: {len(row)} fields where {len(columns)} were "
-                                "expected; the file is damaged and cannot be resumed")
-    return body
+        raise DatalogError(f"is not the {key} file this lot started with (SHA-256 differs from "
+                           f"{folder}/lot.json; its copy is {folder}/{key}.yaml)", path=f"--{key} {given}")
 
 
 def _read_marker(folder: Path, header: dict[str, Any]) -> dict[str, Any] | None:
@@ -167,33 +165,30 @@ def _read_marker(folder: Path, header: dict[str, Any]) -> dict[str, Any] | None:
         ids = marker["ids"]
         int(marker["parts_rows"]), int(marker["results_rows"]), int(marker["presented_before"])
     except (OSError, ValueError, KeyError, TypeError) as exc:
-        raise ResumeRefused(f"{path}: cannot be read ({exc}); it cannot be resumed") from None
+        raise DatalogError(f"cannot be read ({exc}); it cannot be resumed", path=path) from None
     if not isinstance(ids, list) or marker.get("lot_id") != header.get("lot_id"):
-        raise ResumeRefused(f"{path}: does not belong to lot {header.get('lot_id')!r}")
+        raise DatalogError(f"does not belong to lot {header.get('lot_id')!r}", path=path)
     return marker
 
 
-def _whole_parts_only(parts: list[list[str]], results: list[list[str]],
+def _whole_parts_only(folder: Path, parts: list[list[str]], results: list[list[str]],
                       warnings: list[str]) -> tuple[list[list[str]], list[str]]:
-    """Results are written before their part row: match them up in file order and keep
-    only results that a part row follows. A tester fault's part row has no results."""
-    kept = 0
-    for part in parts:
-        if part[_P["FAULT"]]:
-            continue
-        key = (part[_P["PART_ID"]], part[_P["SITE_NUM"]])
-        while kept < len(results) and (results[kept][_R["PART_ID"]], results[kept][_R["SITE_NUM"]]) == key:
-            kept += 1
+    """Keep the results that a part row commits. Results after the last committed ones are
+    the part in progress (dropped, retested); results of no part before that are damage."""
+    owner = match_results_to_parts(
+        [r[_R["PART_ID"]] for r in results], [r[_R["SITE_NUM"]] for r in results],
+        [r[_R["TEST_NUM"]] for r in results], [p[_P["PART_ID"]] for p in parts],
+        [p[_P["SITE_NUM"]] for p in parts], [p[_P["PASS"]] != "" for p in parts])
+    matched = np.flatnonzero(owner >= 0)
+    kept = int(matched[-1]) + 1 if len(matched) else 0
+    stray = np.flatnonzero(owner[:kept] < 0)
+    if len(stray):
+        row = results[int(stray[0])]
+        raise DatalogError(f"PART_ID: part {row[_R['PART_ID']]!r} site {row[_R['SITE_NUM']]} has result rows "
+                           "but no parts.csv row, before parts that do: the datalog is damaged and cannot be "
+                           "resumed", path=folder / RESULTS_CSV, line=int(stray[0]) + 2)
     orphans = sorted({row[_R["PART_ID"]] for row in results[kept:]})
     if orphans:
         warnings.append(f"results.csv: dropped {len(results) - kept} result row(s) with no parts.csv row "
                         f"(part(s) {', '.join(orphans)}: retested)")
     return results[:kept], orphans
-
-
-def _csv_text(columns: list[str], rows: list[list[str]]) -> str:
-    buffer = io.StringIO(newline="")
-    writer = csv.writer(buffer)
-    writer.writerow(columns)
-    writer.writerows(rows)
-    return buffer.getvalue()

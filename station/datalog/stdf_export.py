@@ -19,16 +19,24 @@ Choices the datalog leaves open, made here once:
 
 from __future__ import annotations
 
-import csv
-import json
 import math
-import os
 from collections import Counter, defaultdict
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from station.datalog.folder import (
+    PART_COLUMNS,
+    PARTS_CSV,
+    RESULT_COLUMNS,
+    RESULTS_CSV,
+    DatalogError,
+    atomic_target,
+    match_results_to_parts,
+    read_lot_header,
+    read_rows,
+)
 from station.datalog.stdf_records import (
     HEAD_ALL,
     Dtr,
@@ -44,17 +52,14 @@ from station.datalog.stdf_records import (
     Tsr,
 )
 
+__all__ = ["Datalog", "DatalogError", "match_results", "read_datalog", "stdf_bytes", "write_stdf"]
+
 SITE_ALL = 255  # SITE_NUM written with HEAD_NUM 255 (see the module notes)
 
 # Display scale per unit (power of ten): offsets are uV, currents uA, slopes uV/V.
 UNIT_SCALE: dict[str, int] = {"V": 6, "A": 6, "V/V": 6, "dB": 0}
 
-RESULT_COLUMNS = ("PART_ID", "HEAD_NUM", "SITE_NUM", "TEST_NUM", "TEST_TXT", "RESULT",
-                  "UNITS", "LO_LIMIT", "HI_LIMIT", "PASS")
-PART_COLUMNS = ("PART_ID", "HEAD_NUM", "SITE_NUM", "HARD_BIN", "SOFT_BIN", "PASS", "TEST_T",
-                "RETEST")
-
-# PTR TEST_FLG / PARM_FLG / OPT_FLAG and PRR PART_FLG bits (STDF-V4.md, "Flag bits").
+# PTR TEST_FLG / PARM_FLG / OPT_FLAG and PRR PART_FLG bits (STDF V4, "Flag bits").
 TEST_FLG_NOT_VALID = 0x02
 TEST_FLG_NO_PASS_FAIL = 0x40
 TEST_FLG_FAILED = 0x80
@@ -77,10 +82,6 @@ TSR_TIM_INVALID = 0x04
 TSR_STATS_INVALID = 0x01 | 0x02 | 0x10 | 0x20
 
 
-class DatalogError(Exception):
-    """The folder is not a readable datalog; the message says which file and what is wrong."""
-
-
 @dataclass
 class Datalog:
     """The three files of a datalog folder the export needs, as read (CSV cells as text)."""
@@ -93,32 +94,15 @@ class Datalog:
 
 # --- reading -------------------------------------------------------------------------------
 
-def _read_csv(path: Path, required: Iterable[str]) -> list[dict[str, str]]:
-    if not path.is_file():
-        raise DatalogError(f"{path}: missing (not a datalog folder?)")
-    with path.open(newline="", encoding="utf-8") as handle:
-        reader = csv.DictReader(handle)
-        missing = [c for c in required if c not in (reader.fieldnames or [])]
-        if missing:
-            raise DatalogError(f"{path}: missing column(s) {', '.join(missing)}")
-        return list(reader)
-
-
 def read_datalog(datalog_dir: Path) -> Datalog:
-    """Read lot.json, results.csv and parts.csv, checking the columns the export uses."""
+    """Read lot.json, results.csv and parts.csv; every row is checked against the format,
+    so a bad cell is refused with file, line and column (station/datalog/folder.py)."""
     folder = Path(datalog_dir)
-    lot_path = folder / "lot.json"
-    if not lot_path.is_file():
-        raise DatalogError(f"{folder}: not a datalog folder (no lot.json)")
-    try:
-        lot = json.loads(lot_path.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise DatalogError(f"{lot_path}: not valid JSON ({exc})") from None
-    if not isinstance(lot, dict):
-        raise DatalogError(f"{lot_path}: expected a JSON object")
-    results = _read_csv(folder / "results.csv", RESULT_COLUMNS)
-    parts = _read_csv(folder / "parts.csv", PART_COLUMNS)
-    return Datalog(folder, lot, results, parts)
+    lot = read_lot_header(folder)
+    results, _ = read_rows(folder / RESULTS_CSV)
+    parts, _ = read_rows(folder / PARTS_CSV)
+    return Datalog(folder, lot, [dict(zip(RESULT_COLUMNS, r, strict=True)) for r in results],
+                   [dict(zip(PART_COLUMNS, p, strict=True)) for p in parts])
 
 
 def _number(text: str) -> float | None:
@@ -131,58 +115,28 @@ def _int(row: dict[str, str], column: str, where: str) -> int:
     try:
         return int(float(row[column]))
     except (TypeError, ValueError):
-        raise DatalogError(f"{where}: {column} {row.get(column)!r} is not a number") from None
-
-
-def _part_key(row: dict[str, str]) -> tuple[str, str, str]:
-    return (row["PART_ID"], row["HEAD_NUM"].strip(), row["SITE_NUM"].strip())
+        raise DatalogError(f"{column} {row.get(column)!r} is not a number", path=where) from None
 
 
 def _is_fault(part: dict[str, str]) -> bool:
     return part["PASS"].strip() == ""
 
 
-def match_results(parts: list[dict[str, str]], results: list[dict[str, str]]
-                  ) -> list[list[dict[str, str]]]:
-    """The result rows of each part, in parts.csv order.
-
-    Rows are matched by PART_ID, HEAD_NUM and SITE_NUM. When one part id was tested more than
-    once on a head and site, its rows are split into runs in file order: a TEST_NUM seen
-    again starts the next test of that part (a sequence yields each TEST_NUM once per part).
-    A tester-fault part (PASS empty) has no rows.
-    """
-    rows_by_key: dict[tuple[str, str, str], list[dict[str, str]]] = defaultdict(list)
-    for row in results:
-        rows_by_key[_part_key(row)].append(row)
-    tested = Counter(_part_key(p) for p in parts if not _is_fault(p))
-    runs_by_key: dict[tuple[str, str, str], list[list[dict[str, str]]]] = {}
-    for key, rows in rows_by_key.items():
-        if tested[key] == 0:
-            raise DatalogError(f"results.csv: rows of part {key[0]!r} site {key[2]} belong to "
-                               "no tested part in parts.csv")
-        runs_by_key[key] = [rows] if tested[key] == 1 else _split_runs(rows)
-        if len(runs_by_key[key]) > tested[key]:
-            raise DatalogError(f"results.csv: part {key[0]!r} site {key[2]} has "
-                               f"{len(runs_by_key[key])} runs of results but parts.csv "
-                               f"has {tested[key]} tests of it")
-    matched: list[list[dict[str, str]]] = []
-    for part in parts:
-        runs = runs_by_key.get(_part_key(part), [])
-        matched.append([] if _is_fault(part) or not runs else runs.pop(0))
+def match_results(log: Datalog) -> list[list[dict[str, str]]]:
+    """The result rows of each part, in parts.csv order (the matching rule is
+    station/datalog/folder.py's); a result row of no part is refused, naming its line."""
+    parts, results = log.parts, log.results
+    owner = match_results_to_parts(
+        [r["PART_ID"] for r in results], [int(r["SITE_NUM"]) for r in results],
+        [int(r["TEST_NUM"]) for r in results], [p["PART_ID"] for p in parts],
+        [int(p["SITE_NUM"]) for p in parts], [not _is_fault(p) for p in parts])
+    matched: list[list[dict[str, str]]] = [[] for _ in parts]
+    for index, (row, part) in enumerate(zip(results, owner, strict=True)):
+        if part < 0:
+            raise DatalogError(f"PART_ID: the rows of part {row['PART_ID']!r} site {row['SITE_NUM']} belong "
+                               "to no tested part in parts.csv", path=log.folder / RESULTS_CSV, line=index + 2)
+        matched[int(part)].append(row)
     return matched
-
-
-def _split_runs(rows: list[dict[str, str]]) -> list[list[dict[str, str]]]:
-    runs: list[list[dict[str, str]]] = []
-    seen: set[str] = set()
-    for row in rows:
-        number = row["TEST_NUM"].strip()
-        if not runs or number in seen:
-            runs.append([])
-            seen = set()
-        runs[-1].append(row)
-        seen.add(number)
-    return runs
 
 
 # --- flags ---------------------------------------------------------------------------------
@@ -275,7 +229,7 @@ def _ptr(row: dict[str, str], first: dict[int, _Limits], where: str) -> Ptr:
         result = float(row["RESULT"])
         lo, hi = _number(row["LO_LIMIT"]), _number(row["HI_LIMIT"])
     except ValueError:
-        raise DatalogError(f"{where}: RESULT or a limit is not a number") from None
+        raise DatalogError("RESULT or a limit is not a number", path=where) from None
     passed = row["PASS"].strip()
     test_flg, parm_flg = ptr_flags(result, lo, hi, passed)
     opt = OPT_FLAG_RESERVED | OPT_FLAG_NO_SPEC_LIMITS
@@ -312,9 +266,8 @@ def _part_text(part: dict[str, str]) -> str:
 
 def _part_records(log: Datalog) -> Iterator[bytes]:
     first: dict[int, _Limits] = {}
-    for index, (part, rows) in enumerate(zip(log.parts, match_results(log.parts, log.results),
-                                             strict=True)):
-        where = f"parts.csv row {index + 2}"
+    for index, (part, rows) in enumerate(zip(log.parts, match_results(log), strict=True)):
+        where = f"{PARTS_CSV}:{index + 2}"
         head, site = _int(part, "HEAD_NUM", where), _int(part, "SITE_NUM", where)
         yield Pir(HEAD_NUM=head, SITE_NUM=site).encode()
         for row in rows:
@@ -429,9 +382,8 @@ def write_stdf(datalog_dir: Path, out_path: Path | None = None) -> Path:
     try:
         data = stdf_bytes(log)
     except ValueError as exc:
-        raise DatalogError(f"{log.folder}: cannot be written as STDF: {exc}") from None
+        raise DatalogError(f"cannot be written as STDF: {exc}", path=log.folder) from None
     target = Path(out_path) if out_path is not None else log.folder / "lot.stdf"
-    partial = target.with_name(target.name + ".partial")
-    partial.write_bytes(data)
-    os.replace(partial, target)  # a reader never sees half a file
+    with atomic_target(target) as temp:  # a reader never sees half a file
+        temp.write_bytes(data)
     return target

@@ -21,8 +21,9 @@ from dataclasses import dataclass, field
 from drivers.errors import InstrumentError
 from station import __version__
 from station.config.plan import ScreenPlan
-from station.datalog.resume import ResumeState
+from station.datalog.resume import ResumeState, part_fields
 from station.datalog.writer import DatalogWriter, PartRecord
+from station.errors import EXIT_SOFTWARE, EXIT_STOPPED, Stopped  # exit codes of a stop
 from station.lot.bench import Bench
 from station.lot.index_screen import IndexScreen, PartOutcome
 from station.lot.site_readings import SiteReader
@@ -31,11 +32,9 @@ from station.lot.stop_signals import LotInterrupted, signals_deferred
 __all__ = ["LotInterrupted", "LotRunner", "LotSettings", "LotStopped", "LotTally"]
 
 SOFTWARE_NAME = "ampscreen-station"
-EXIT_STOPPED = 3        # stopped: instrument failure, Ctrl-C, SIGTERM
-EXIT_SOFTWARE = 1       # stopped by an error of the station itself (a bug, a full disk)
 
 
-class LotStopped(Exception):
+class LotStopped(Stopped):
     """The bench stayed faulty for `max_faults` attempts in a row."""
 
 
@@ -117,7 +116,7 @@ class LotRunner:
     def _take_over(self, resume: ResumeState) -> None:
         """Counts and ids of the parts logged before the lot was interrupted."""
         for row in resume.part_rows:
-            pid, hard, soft, grade, passed, retest = (row[1], int(row[4]), int(row[5]), row[6], row[7], row[9])
+            pid, hard, soft, grade, passed, retest = part_fields(row)
             self.tally.add(hard, soft, None if passed == "" else passed == "1", grade or None, retest == "1")
             if pid in resume.done_ids:
                 self._final_bins[pid] = hard
@@ -165,7 +164,9 @@ class LotRunner:
         except InstrumentError as exc:
             self._stop(f"instrument failure: {exc}", EXIT_STOPPED)
         except Exception as exc:  # a bug or a full disk must still reach the safe state
-            self._stop(f"station error: {type(exc).__name__}: {exc}", EXIT_SOFTWARE)
+            # Ends like any other stop: safe state, datalog consistent, parts under test
+            # resumable (exit 3); the message names the error for the bug report.
+            self._stop(f"station error: {type(exc).__name__}: {exc}", EXIT_STOPPED)
         finally:
             with signals_deferred(self.tell):
                 self.safe_state_log = self.bench.safe_state()
@@ -288,6 +289,8 @@ class LotRunner:
             "instrument_retries": {role: link.retries + int(self._earlier_retries.get(role, 0))
                                    for role, link in self.bench.all_links().items()},
             "safe_state": self.safe_state_log,
+            # What the safe state could not confirm by read-back (empty: the bench is safe).
+            "safe_state_unverified": list(self.bench.unverified or []),
             "hard_bins": {str(n): {"name": b.name, "pass": b.passing, "count": tally.hard_bins.get(n, 0)}
                           for n, b in sorted(table.hard_bins.items())},
             "soft_bins": {str(n): {"name": b.name, "pass": b.passing, "count": tally.soft_bins.get(n, 0)}

@@ -15,7 +15,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-DATALOG_FORMAT = "ampscreen-datalog/1"
+from station.datalog.folder import FORMAT as DATALOG_FORMAT
+from station.datalog.folder import DatalogError
+from station.datalog.folder import match_results_to_parts as match_rows
 
 # Explicit dtypes: no type sniffing (slow, and a numeric-looking PART_ID must stay text).
 RESULT_DTYPES: dict[str, object] = {
@@ -36,10 +38,6 @@ _PART_EMPTY = {c: [""] for c in ("PASS", "FAIL_TEST", "TEST_T", "END_T")}
 
 # Raw sweep points (not computed figures); summaries leave them out.
 RAW_PARAMS = frozenset({"vos_cm", "vos_force", "vos_span"})
-
-
-class DatalogError(Exception):
-    """A folder is not a readable datalog; the message is one line naming folder and problem."""
 
 
 @dataclass
@@ -125,43 +123,14 @@ def read_datalog_folder(folder: Path) -> tuple[dict, pd.DataFrame, pd.DataFrame,
 
 
 def match_results_to_parts(results: pd.DataFrame, parts: pd.DataFrame) -> np.ndarray:
-    """PART_SEQ of each result row (-1 where no part row matches).
-
-    results.csv has no part number of its own: a part's rows are written together at its end,
-    in the same order as parts.csv. So the k-th block of rows of part id P is the k-th parts.csv
-    row of P that has results (tester faults have none). A block starts where the lot, part or
-    site changes. Where parts.csv holds more tests of P than that finds (P retested on the same
-    site right after itself), a repeated test number starts the next block too.
-    """
-    if results.empty:
-        return np.zeros(0, dtype=np.int64)
-    lot = results["LOT_ID"].astype(str).to_numpy()
-    part = results["PART_ID"].to_numpy()
-    site = results["SITE_NUM"].to_numpy()
-    change = np.ones(len(results), dtype=bool)
-    change[1:] = (lot[1:] != lot[:-1]) | (part[1:] != part[:-1]) | (site[1:] != site[:-1])
-    block = np.cumsum(change)
-    with_results = parts[parts["PASS"].notna()]
-    wanted = with_results.groupby(["LOT_ID", "PART_ID"], sort=False).size()
-    found = pd.DataFrame({"lot": lot[change], "part": part[change]}).groupby(["lot", "part"], sort=False).size()
-    have = found.reindex(wanted.index, fill_value=0)
-    split_keys = set(wanted.index[have.to_numpy() < wanted.to_numpy()])
-    if split_keys:
-        rows = np.fromiter(((a, b) in split_keys for a, b in zip(lot, part, strict=True)), bool, len(lot))
-        repeat = pd.Series(results["TEST_NUM"].to_numpy()).where(rows, 0)
-        occurrence = repeat.groupby([block, repeat.to_numpy()], sort=False).cumcount().to_numpy()
-        block = block * 1_000 + np.where(rows, occurrence, 0)
-    block_code = pd.factorize(block)[0]
-    first = ~pd.Series(block_code).duplicated().to_numpy()
-    blocks = pd.DataFrame({"lot": lot[first], "part": part[first], "code": block_code[first]})
-    blocks["occ"] = blocks.groupby(["lot", "part"], sort=False).cumcount()
-    targets = pd.DataFrame({"lot": with_results["LOT_ID"].to_numpy(), "part": with_results["PART_ID"].to_numpy(),
-                            "seq": with_results["PART_SEQ"].to_numpy()})
-    targets["occ"] = targets.groupby(["lot", "part"], sort=False).cumcount()
-    matched = blocks.merge(targets, on=["lot", "part", "occ"], how="left")
-    seq_of_code = np.full(block_code.max() + 1, -1, dtype=np.int64)
-    seq_of_code[matched["code"].to_numpy()] = matched["seq"].fillna(-1).astype(np.int64).to_numpy()
-    return seq_of_code[block_code]
+    """PART_SEQ of each result row (-1 where no part row matches), by the datalog format's one
+    matching rule (station/datalog/folder.py: match_results_to_parts)."""
+    if results.empty or parts.empty:
+        return np.full(len(results), -1, dtype=np.int64)
+    position = match_rows(results["PART_ID"].to_numpy(), results["SITE_NUM"].to_numpy(),
+                          results["TEST_NUM"].to_numpy(), parts["PART_ID"].to_numpy(),
+                          parts["SITE_NUM"].to_numpy(), parts["PASS"].notna().to_numpy())
+    return np.where(position >= 0, parts["PART_SEQ"].to_numpy()[np.maximum(position, 0)], -1)
 
 
 def _read_lot(path: Path) -> dict:

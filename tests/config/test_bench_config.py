@@ -79,7 +79,7 @@ def test_unknown_key_names_key_and_line():
 def test_missing_role_is_reported():
     text = "\n".join(line for line in GOOD.splitlines() if not line.startswith("  force:"))
     error = error_of(text)
-    assert error.key == "instruments.force" and "missing" in str(error)
+    assert error.key == "instruments" and "'force' is missing" in str(error)
     assert error.line == line_of(text, "instruments:")
 
 

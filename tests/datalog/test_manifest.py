@@ -65,7 +65,7 @@ def test_one_changed_byte_in_any_file_is_caught(tmp_path: Path, name: str) -> No
     folder = _sealed(tmp_path / "DL")
     _flip_one_byte(folder / name)
     code, output = _verify(folder)
-    assert code == 1
+    assert code == 2   # refused: the folder is not what the lot left
     assert name in output
 
 
@@ -76,7 +76,7 @@ def test_manifest_cannot_be_changed_even_where_json_stays_valid(tmp_path: Path) 
     # Edits that keep valid JSON: a different written time, a reformatted layout.
     for edited in (text.replace('"written": "', '"written": "1', 1), text.replace("\n  ", "\n ", 1)):
         path.write_text(edited)
-        assert _verify(folder)[0] == 1
+        assert _verify(folder)[0] == 2
     path.write_text(text)
     assert _verify(folder)[0] == 0
 
@@ -86,7 +86,7 @@ def test_missing_and_added_files_are_named(tmp_path: Path) -> None:
     (folder / "parts.csv").unlink()
     (folder / "notes.txt").write_text("added later\n")
     code, output = _verify(folder)
-    assert code == 1
+    assert code == 2   # refused: the folder is not what the lot left
     assert "missing: parts.csv" in output and "added: notes.txt" in output
     report = verify_datalog(folder)
     assert (report.missing, report.added, report.changed) == (["parts.csv"], ["notes.txt"], [])
@@ -97,14 +97,14 @@ def test_config_copy_must_match_the_hash_lot_json_recorded(tmp_path: Path) -> No
     (folder / "limits.yaml").write_text("grades: [A, B, C]\n")
     write_manifest(folder)  # even a re-written manifest does not hide the swapped limits
     code, output = _verify(folder)
-    assert code == 1
+    assert code == 2   # refused: the folder is not what the lot left
     assert "limits.yaml" in output and "lot.json" in output
 
 
 def test_folder_without_manifest_is_not_intact(tmp_path: Path) -> None:
     folder = make_datalog(tmp_path / "DL")
     code, output = _verify(folder)
-    assert code == 1 and "manifest.json: missing" in output
+    assert code == 2 and "manifest.json: missing" in output
 
 
 def test_not_a_datalog_exits_2(tmp_path: Path) -> None:

@@ -79,5 +79,6 @@ def test_refusals(tmp_path):
         _inspect(tmp_path)
     header = json.loads((tmp_path / "lot.json").read_text())
     (tmp_path / "lot.json").write_text(json.dumps({**header, "complete": True}))
+    (tmp_path / "manifest.json").write_text("{}")               # ended and sealed
     with pytest.raises(ResumeRefused, match="ran to its end"):
         _inspect(tmp_path)

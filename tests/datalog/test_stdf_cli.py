@@ -43,11 +43,11 @@ def test_convert_does_not_reseal_a_damaged_folder(tmp_path: Path) -> None:
         handle.write("\n")
     assert _run(convert_command, [str(folder), "--to", "stdf"])[0] == 0
     code, output = _run(verify_command, [str(folder)])
-    assert code == 1 and "changed: parts.csv" in output and "added: lot.stdf" in output
+    assert code == 2 and "changed: parts.csv" in output and "added: lot.stdf" in output
 
 
 def test_convert_errors_are_one_line(tmp_path: Path) -> None:
     code, output = _run(convert_command, [str(tmp_path), "--to", "stdf"])
-    assert code == 1 and output.startswith("Error:") and len(output.strip().splitlines()) == 1
+    assert code == 2 and output.startswith("Error:") and len(output.strip().splitlines()) == 1
     code, output = _run(convert_command, [str(tmp_path)])  # --to is required
     assert code == 2 and "--to" in output

@@ -118,6 +118,10 @@ def test_resume_refuses_what_it_cannot_continue(tmp_path, quiet_bench):
     _refused(_run(bench, "--resume", str(folder), lot="OTHER-2"), "holds lot 'OLD-1'")
     _refused(CliRunner().invoke(main, ["dry-run", "--resume", str(folder)]), "resume it with `station run")
     done = _datalog(tmp_path / "done", complete=True)
+    # A lot that reached its end but was never sealed (no manifest) is sealed, nothing tested;
+    # once sealed, there is nothing left to resume.
+    sealing = _run(bench, "--resume", str(done), lot=None)
+    assert sealing.exit_code == 0 and "sealing" in sealing.output, sealing.output
     _refused(_run(bench, "--resume", str(done), lot=None), "ran to its end")
     assert sim.command_log == []
 

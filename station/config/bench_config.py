@@ -16,6 +16,9 @@ from pydantic_core import PydanticCustomError
 from pyvisa.rname import InvalidResourceName, parse_resource_name
 
 from drivers.registry import DRIVERS, known_drivers
+from drivers.supply import INSTRUMENT_MAX_A as SUPPLY_MAX_A
+from drivers.supply import INSTRUMENT_MAX_V as SUPPLY_MAX_V
+from drivers.supply import INSTRUMENT_MIN_A as SUPPLY_MIN_A
 from station.config.files import (
     ConfigError,
     YamlDocument,
@@ -23,11 +26,13 @@ from station.config.files import (
     parse_yaml_text,
     validate_model,
 )
-from station.config.quantities import parse_quantity
+from station.config.quantities import format_quantity, parse_quantity
 from station.judge.measure import loop_gain
 
 MAX_SITES = 4
-MAX_RAIL_LIMIT_V = 30.0
+# One set of safety limits: the rail supply's own range (drivers/supply.py), enforced here at
+# load so a bench config can never promise more than the driver would send.
+MAX_RAIL_LIMIT_V = SUPPLY_MAX_V
 LINE_FREQUENCIES_HZ = (50.0, 60.0)
 DEFAULT_TIMEOUT_S = 5.0
 
@@ -188,10 +193,14 @@ def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySect
                         f"write a number from 1 to {MAX_SITES}")
     if not 0 < safety.max_rail <= MAX_RAIL_LIMIT_V:
         raise doc.error(["safety", "max_rail"],
-                        f"{safety.max_rail:g} V is outside (0, {MAX_RAIL_LIMIT_V:g} V]",
+                        f"{safety.max_rail:g} V is outside (0, {MAX_RAIL_LIMIT_V:g} V], the rail "
+                        "supply's range",
                         "give the largest rail magnitude the parts may see, e.g. '12 V'")
-    if safety.current_compliance <= 0:
-        raise doc.error(["safety", "current_compliance"], "must be above 0 A",
+    if not SUPPLY_MIN_A <= safety.current_compliance <= SUPPLY_MAX_A:
+        raise doc.error(["safety", "current_compliance"],
+                        f"{format_quantity(safety.current_compliance, 'A')} is outside the rail supply's "
+                        f"compliance range {format_quantity(SUPPLY_MIN_A, 'A')} to "
+                        f"{format_quantity(SUPPLY_MAX_A, 'A')}",
                         "give the supply's current limit, e.g. '20 mA'")
 
 

@@ -166,7 +166,8 @@ def _refuse_repeated_keys(loader: yaml.SafeLoader, root: yaml.Node, file: str) -
             for key_node, value_node in node.value:
                 if key_node.tag == _MERGE_TAG:
                     continue
-                key = loader.construct_object(key_node, deep=True)
+                # 2 and '2' are one key to the station (bins are read as text keys too).
+                key = str(loader.construct_object(key_node, deep=True))
                 line = key_node.start_mark.line + 1
                 try:
                     earlier = first_line.get(key)

@@ -260,6 +260,18 @@ def _check_hard_bins(doc: YamlDocument, model: _TableModel, hard_bins: dict[int,
                         "tester faults are never a DUT fail: give them a retest hard bin of their own")
 
 
+# No figure the bench measures comes near these: a limit beyond is a slip of the unit
+# ("1e30 uV"), refused rather than silently passing every part.
+_SANE_LIMIT: dict[str, float] = {"V": 30.0, "A": 1.0, "dB": 400.0, "V/V": 1e12}
+
+
+def _refuse_absurd(doc: YamlDocument, path: list, what: str, raw: object, value: float, unit: str) -> None:
+    bound = _SANE_LIMIT.get(unit)
+    if bound is not None and abs(value) > bound:
+        raise doc.error(path, f"{what} {raw!r} is beyond any value the bench can measure "
+                        f"(|value| <= {bound:g} {unit})", "check the unit prefix")
+
+
 def _contact(doc: YamlDocument, model: _TableModel) -> ContactRule:
     c = model.contact
     values = {}
@@ -270,6 +282,7 @@ def _contact(doc: YamlDocument, model: _TableModel) -> ContactRule:
             raise doc.error(["contact", key], str(exc)) from None
         if values[key] < 0:
             raise doc.error(["contact", key], "a supply-current threshold cannot be negative")
+        _refuse_absurd(doc, ["contact", key], "contact threshold", getattr(c, key), values[key], "A")
     if not values["open_below"] < values["short_above"]:
         raise doc.error(["contact"], f"open_below ({_show(values['open_below'], 'A')}) must be "
                         f"below short_above ({_show(values['short_above'], 'A')})",
@@ -327,6 +340,7 @@ def _limit(doc: YamlDocument, path: list[str | int], entry: _LimitModel,
             bounds[key] = parse_quantity(raw, info.units)
         except ValueError as exc:
             raise doc.error([*path, key], f"{param} limit: {exc}") from None
+        _refuse_absurd(doc, [*path, key], f"{param} limit", raw, bounds[key], info.units)
     low, high = bounds["low"], bounds["high"]
     if low is None and high is None:
         raise doc.error(path, f"{param} limit has neither low nor high", "add low:, high: or both")

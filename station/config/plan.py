@@ -9,8 +9,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+from drivers.handler import MAX_BIN as HANDLER_MAX_BIN
+from drivers.handler import MIN_BIN as HANDLER_MIN_BIN
 from station.config.bench_config import BenchConfig, load_bench_config
-from station.config.files import ConfigError
+from station.config.files import ConfigError, load_yaml_file
 from station.config.limit_tables import LimitTable, load_limit_table
 from station.config.sequence import (
     Sequence,
@@ -45,6 +47,23 @@ class ScreenPlan:
         return self.steps[step.index]
 
 
+def check_bins_fit_handler(table: LimitTable, path: Path) -> None:
+    """Every hard bin a part can be sorted to must be one the handler has (STDF allows 0-32767,
+    a handler far fewer): refused before the lot, not after the first index."""
+    doc = load_yaml_file(path)
+    used: list[tuple[list[str | int], int]] = [
+        *((["grades", i, "hard_bin"], grade.hard_bin) for i, grade in enumerate(table.grades)),
+        (["fail_hard_bin"], table.fail_hard_bin),
+        (["contact", "hard_bin"], table.contact.hard_bin),
+        (["tester_fault", "hard_bin"], table.tester_fault_hard_bin),
+    ]
+    for key, number in used:
+        if not HANDLER_MIN_BIN <= number <= HANDLER_MAX_BIN:
+            raise doc.error(key, f"hard bin {number} is not one the handler can sort to "
+                            f"({HANDLER_MIN_BIN} to {HANDLER_MAX_BIN})",
+                            f"renumber the hard bins to {HANDLER_MIN_BIN}-{HANDLER_MAX_BIN}")
+
+
 def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> ScreenPlan:
     """Load and cross-check; any problem is a ConfigError naming the file and what to fix."""
     bench = load_bench_config(bench_path)
@@ -55,6 +74,8 @@ def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> Scre
                           f"limit table {table.source} is for {table.product!r}",
                           hint="pick the limit table of the same product")
     check_bench_safety(sequence, bench.max_rail_v, bench.compliance_a)
+    if bench.has_handler:
+        check_bins_fit_handler(table, Path(limits_path))
     context = KindContext(sequence.span_v, table.regions)
     for step in sequence.tests:
         kind_of(step).check(step, sequence, context)

@@ -8,12 +8,18 @@ checks its own conditions, station/kinds); it runs before anything is powered.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from drivers.dmm import RANGES_V as DMM_RANGES_V
+from drivers.force import INSTRUMENT_MAX_V as FORCE_MAX_V
+from drivers.supply import INSTRUMENT_MAX_A as SUPPLY_MAX_A
+from drivers.supply import INSTRUMENT_MAX_V as SUPPLY_MAX_V
+from drivers.supply import INSTRUMENT_MIN_A as SUPPLY_MIN_A
 from station.config.files import ConfigError, YamlDocument, load_yaml_file, parse_yaml_text
-from station.config.quantities import parse_quantity
+from station.config.quantities import format_quantity, parse_quantity
 from station.config.rail_points import RailPoint, parse_rail_point, rails_for
 from station.kinds.registry import KINDS, kind_of
 
@@ -122,14 +128,22 @@ class _Reader:
                                      f"allowed here: {', '.join(sorted(allowed))}")
         return value
 
-    def quantity(self, value: Any, path: list, unit: str) -> float:
+    def quantity(self, value: Any, path: list, unit: str,
+                 within: tuple[float, float, str] | None = None) -> float:
+        """A finite quantity inside `within` (low, high, why), or else the sane range of its unit."""
         try:
-            return parse_quantity(value, unit)
+            number = parse_quantity(value, unit)
         except ValueError as exc:
             raise self.doc.error(path, str(exc)) from None
+        low, high, why = within or _SANE.get(unit, (-math.inf, math.inf, ""))
+        if not low <= number <= high:
+            raise self.doc.error(path, f"{value!r} is outside {_show(low, unit)} to {_show(high, unit)}"
+                                 f" ({why})", f"write a value from {_show(low, unit)} to {_show(high, unit)}")
+        return number
 
-    def positive(self, value: Any, path: list, unit: str) -> float:
-        number = self.quantity(value, path, unit)
+    def positive(self, value: Any, path: list, unit: str,
+                 within: tuple[float, float, str] | None = None) -> float:
+        number = self.quantity(value, path, unit, within)
         if number <= 0:
             raise self.doc.error(path, f"must be above zero, got {value!r}")
         return number
@@ -184,13 +198,29 @@ class _Reader:
         except ValueError as exc:
             raise self.doc.error(path, str(exc)) from None
 
-    def volt_list(self, value: Any, path: list, what: str) -> tuple[float, ...]:
+    def volt_list(self, value: Any, path: list, what: str,
+                  within: tuple[float, float, str] | None = None) -> tuple[float, ...]:
         if not isinstance(value, list) or len(value) < 2:
             raise self.doc.error(path, f"expected a list of at least two {what}", "e.g. [-4 V, 4 V]")
-        numbers = tuple(self.quantity(item, [*path, i], "V") for i, item in enumerate(value))
+        numbers = tuple(self.quantity(item, [*path, i], "V", within) for i, item in enumerate(value))
         if len(set(numbers)) < 2:
             raise self.doc.error(path, f"the {what} must differ, or no slope can be measured")
         return numbers
+
+
+# Sane ranges (the instruments' own limits, from the drivers): a value outside is a typo or a
+# unit slip, refused at load before anything is powered.
+_SPAN = (0.0, 2 * SUPPLY_MAX_V, f"two rails of at most {SUPPLY_MAX_V:g} V each")
+_FORCE = (-FORCE_MAX_V, FORCE_MAX_V, f"the force source spans +-{FORCE_MAX_V:g} V")
+_SANE: dict[str, tuple[float, float, str]] = {
+    "s": (0.0, 60.0, "a settling or integration time over a minute is a slip of the unit"),
+    "V": (-2 * SUPPLY_MAX_V, 2 * SUPPLY_MAX_V, "beyond what the rail supply can span"),
+    "A": (-SUPPLY_MAX_A, SUPPLY_MAX_A, "beyond the rail supply's current range"),
+}
+
+
+def _show(value: float, unit: str) -> str:
+    return format_quantity(value, unit) if math.isfinite(value) else f"{value:g} {unit}"
 
 
 def _build(doc: YamlDocument) -> Sequence:
@@ -202,11 +232,15 @@ def _build(doc: YamlDocument) -> Sequence:
     supply = read.mapping(top["supply"], ["supply"], {"span", "compliance"})
     if "span" not in supply:
         raise doc.error(["supply"], "required key 'span' is missing", "e.g. span: 10 V")
-    span = read.positive(supply["span"], ["supply", "span"], "V")
-    compliance = read.positive(supply.get("compliance", "20 mA"), ["supply", "compliance"], "A")
+    span = read.positive(supply["span"], ["supply", "span"], "V", _SPAN)
+    compliance = read.positive(supply.get("compliance", "20 mA"), ["supply", "compliance"], "A",
+                               (SUPPLY_MIN_A, SUPPLY_MAX_A, "the rail supply's compliance range"))
     dmm = read.mapping(top.get("dmm", {}), ["dmm"], {"nplc", "range", "autozero"})
     nplc = _nplc(read, dmm.get("nplc", 1), ["dmm", "nplc"])
     dmm_range = read.positive(dmm.get("range", "10 V"), ["dmm", "range"], "V")
+    if dmm_range not in DMM_RANGES_V:
+        raise doc.error(["dmm", "range"], f"{dmm.get('range')!r} is not a range of the DMM",
+                        "ranges: " + ", ".join(f"{r:g} V" for r in DMM_RANGES_V))
     autozero = read.boolean(dmm.get("autozero", False), ["dmm", "autozero"])
     settle = read.settle(top.get("settle"), ["settle"], Settle(wait_s=0.05))
     stop_default = read.boolean(top.get("stop_on_fail", False), ["stop_on_fail"])
@@ -262,11 +296,11 @@ def _step(read: _Reader, spec: dict, path: list, index: int, kind: str, nplc: fl
     if kind == "gain":
         if "levels" not in spec:
             raise read.doc.error(path, "a gain test needs 'levels'", "e.g. levels: [-4 V, 4 V]")
-        return TestStep(**common, levels_v=read.volt_list(spec["levels"], [*path, "levels"], "output levels"))
+        return TestStep(**common, levels_v=read.volt_list(spec["levels"], [*path, "levels"], "output levels", _FORCE))
     if kind == "supply_rejection":
         if "spans" not in spec:
             raise read.doc.error(path, "a supply_rejection test needs 'spans'", "e.g. spans: [8 V, 12 V]")
-        spans = read.volt_list(spec["spans"], [*path, "spans"], "supply spans")
+        spans = read.volt_list(spec["spans"], [*path, "spans"], "supply spans", _SPAN)
         for j, value in enumerate(spans):
             if value <= 0:
                 raise read.doc.error([*path, "spans", j], "a supply span must be above zero")

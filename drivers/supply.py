@@ -105,6 +105,19 @@ class DualRailSupply:
         attempt_each((lambda: self.set_rails(0.0, 0.0), lambda: self.outputs(False), self.verify_off),
                      failures)
 
+    def verify_state(self, v_pos: float, v_neg: float, on: bool) -> None:
+        """Read back that the supply is as the station set it (levels and outputs).
+
+        Done at lot start and after every recovery: a setting lost in a fault, or a command
+        an earlier, stopped run left queued, must not go unnoticed into a measurement."""
+        levels, outputs = self.rails(), self.outputs_state()
+        if any(abs(got - want) > 1e-3 for got, want in zip(levels, (v_pos, v_neg), strict=True)) \
+                or outputs != (on, on):
+            state = "on" if on else "off"
+            raise InstrumentError(self.role, self.link.resource, "VOLT?;OUTP?",
+                                  f"reads back V+ {levels[0]:g} V, V- {levels[1]:g} V, outputs "
+                                  f"{outputs}, where the station set {v_pos:g} V / {v_neg:g} V, {state}")
+
     def verify_off(self) -> None:
         """Read back that both outputs are off and programmed to 0 V (on a resynchronised link)."""
         if any(self.outputs_state()):

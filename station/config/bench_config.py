@@ -77,7 +77,7 @@ class _Strict(BaseModel):
 class InstrumentEntry(_Strict):
     resource: Resource
     driver: str
-    timeout: Seconds = Field(DEFAULT_TIMEOUT_S, gt=0)
+    timeout: Seconds = Field(DEFAULT_TIMEOUT_S, gt=0, le=600)
     idn: str | None = None
 
 
@@ -90,10 +90,11 @@ class InstrumentsSection(_Strict):
 
 
 class FixtureSection(_Strict):
-    rf: Ohms = Field(gt=0)
-    rs: Ohms = Field(gt=0)
+    # Loop resistors beyond 1 GOhm are a typing slip, not a servo-loop fixture.
+    rf: Ohms = Field(gt=0, le=1e9)
+    rs: Ohms = Field(gt=0, le=1e9)
     sites: int = Field(strict=True)
-    line_frequency: Hertz
+    line_frequency: Hertz = Field(gt=0, le=1000)
     dmm_per_site: bool | None = Field(None, strict=True)
 
 

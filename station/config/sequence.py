@@ -129,12 +129,16 @@ class _Reader:
         return value
 
     def quantity(self, value: Any, path: list, unit: str,
-                 within: tuple[float, float, str] | None = None) -> float:
+                 within: tuple[float, float, str] | None = None,
+                 above_zero: bool = False) -> float:
         """A finite quantity inside `within` (low, high, why), or else the sane range of its unit."""
         try:
             number = parse_quantity(value, unit)
         except ValueError as exc:
             raise self.doc.error(path, str(exc)) from None
+        # The sign is the likelier mistake, so it is named before the range.
+        if above_zero and number <= 0:
+            raise self.doc.error(path, f"must be above zero, got {value!r}")
         low, high, why = within or _SANE.get(unit, (-math.inf, math.inf, ""))
         if not low <= number <= high:
             raise self.doc.error(path, f"{value!r} is outside {_show(low, unit)} to {_show(high, unit)}"
@@ -143,10 +147,7 @@ class _Reader:
 
     def positive(self, value: Any, path: list, unit: str,
                  within: tuple[float, float, str] | None = None) -> float:
-        number = self.quantity(value, path, unit, within)
-        if number <= 0:
-            raise self.doc.error(path, f"must be above zero, got {value!r}")
-        return number
+        return self.quantity(value, path, unit, within, above_zero=True)
 
     def integer(self, value: Any, path: list, low: int, high: int) -> int:
         if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:

@@ -61,6 +61,8 @@ class IndexScreen:
         self.sleep = sleep
         self._rails: tuple[float, float] | None = None
         self._force: float | None = None
+        self._outputs_on = False
+        self._read_back = False        # the next rail setting is read back (after a recovery)
 
     # --- what a kind sees (StepScreen) ---
     @property
@@ -76,6 +78,9 @@ class IndexScreen:
         if self._rails != (v_pos, v_neg):
             self.bench.supply.set_rails(v_pos, v_neg)
             self._rails = (v_pos, v_neg)
+            if self._read_back:        # first setting after a recovery: trust nothing cached
+                self.bench.supply.verify_state(v_pos, v_neg, on=self._outputs_on)
+                self._read_back = False
 
     def set_force(self, level: float) -> None:
         if self._force != level:
@@ -102,10 +107,15 @@ class IndexScreen:
         self.set_force(0.0)
         self.bench.force.output(True)
         self.bench.supply.outputs(True)
+        self._outputs_on = True
+        # The bench as it really is, before the first part (at lot start and after a recovery).
+        self.bench.supply.verify_state(*rails_for(0.0, seq.span_v), on=True)
+        self._read_back = False
 
     def forget_state(self) -> None:
         """After a fault the instruments may have lost our settings: set everything again."""
         self._rails = self._force = None
+        self._read_back = True
         self.reader.forget_config()
 
     # --- one index ---

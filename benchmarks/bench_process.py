@@ -20,6 +20,7 @@ import subprocess
 import sys
 import tempfile
 from pathlib import Path
+from typing import IO
 
 from sim_instruments.bench import CommandRecord, SimBench, SimSettings
 
@@ -78,8 +79,9 @@ class BenchProcess:
                                    stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._process = process
         try:
-            pickle.dump(self.settings, process.stdin)
-            process.stdin.flush()
+            stdin = _pipe(process.stdin)
+            pickle.dump(self.settings, stdin)
+            stdin.flush()
             message = self._receive(_START_TIMEOUT_S)
         except BaseException:
             self._kill()
@@ -93,7 +95,9 @@ class BenchProcess:
 
     def _receive(self, timeout_s: float):
         """The child's next message, or None if it sent none in time or ended."""
-        stdout = self._process.stdout
+        if self._process is None:
+            return None
+        stdout = _pipe(self._process.stdout)
         ready, _, _ = select.select([stdout], [], [], timeout_s)
         if not ready:
             return None
@@ -112,8 +116,9 @@ class BenchProcess:
         if process is None:
             return
         try:
-            pickle.dump("stop", process.stdin)
-            process.stdin.flush()
+            stdin = _pipe(process.stdin)
+            pickle.dump("stop", stdin)
+            stdin.flush()
             message = self._receive(_STOP_TIMEOUT_S)
             if message is not None and message[0] == "stopped":
                 _, self.command_log, self._truth = message
@@ -134,7 +139,8 @@ class BenchProcess:
             return
         for pipe in (process.stdin, process.stdout):
             try:
-                pipe.close()
+                if pipe is not None:
+                    pipe.close()
             except OSError:
                 pass
         try:
@@ -152,3 +158,10 @@ class BenchProcess:
 
 if __name__ == "__main__":
     _child()
+
+
+def _pipe(stream: IO[bytes] | None) -> IO[bytes]:
+    """The child's pipe; Popen was given PIPE, so it exists while the child is ours."""
+    if stream is None:
+        raise RuntimeError("the bench process has no pipe: it was not started with PIPE")
+    return stream

@@ -309,7 +309,7 @@ class BenchModel:
                 demand[0 if load > 0 else 1] += abs(load)
         ratios = [ch.compliance_a / d if d > 0 else math.inf for ch, d in zip(self.channels, demand, strict=True)]
         sag = min(1.0, *ratios)
-        in_limit = tuple(r < 1.0 and r == sag for r in ratios)
+        in_limit = (ratios[0] < 1.0 and ratios[0] == sag, ratios[1] < 1.0 and ratios[1] == sag)
         current = (demand[0] * sag, -demand[1] * sag)
         return OperatingPoint(vplus * sag, vminus * sag, sag, in_limit, current, powered, vout)
 

@@ -163,7 +163,7 @@ def integer(low: int, high: int, specials: dict[str, int] | None = None) -> Conv
     inner = number("", low, high, {k: float(v) for k, v in (specials or {}).items()})
 
     def convert(token: Token) -> int:
-        return int(round(inner(token)))
+        return int(round(float(inner(token))))  # type: ignore[arg-type]
 
     return convert
 

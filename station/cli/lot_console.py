@@ -58,8 +58,8 @@ def bin_summary(tally: LotTally, table: LimitTable) -> list[Table]:
     for column in ("bin", "name", "P/F", "parts", "share"):
         soft.add_column(column, justify="right" if column in ("bin", "parts", "share") else "left")
     for number, count in sorted(tally.soft_bins.items(), key=lambda item: (-item[1], item[0])):
-        bin_def = table.soft_bins.get(number)
-        soft.add_row(str(number), bin_def.name if bin_def else "?", "P" if bin_def and bin_def.passing else "F",
+        soft_def = table.soft_bins.get(number)
+        soft.add_row(str(number), soft_def.name if soft_def else "?", "P" if soft_def and soft_def.passing else "F",
                      str(count), f"{100.0 * count / total:.1f} %")
     return [hard, soft]
 

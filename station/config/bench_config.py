@@ -209,7 +209,7 @@ def _check_drivers(doc: YamlDocument, section: InstrumentsSection) -> None:
     entries: list[tuple[list[str | int], str, InstrumentEntry]] = [
         (["instruments", "supply"], "supply", section.supply),
         (["instruments", "force"], "force", section.force),
-        *((["instruments", "dmm", i], "dmm", e) for i, e in enumerate(section.dmm)),
+        *((list[str | int](["instruments", "dmm", i]), "dmm", e) for i, e in enumerate(section.dmm)),
         (["instruments", "switch"], "switch", section.switch),
     ]
     if section.handler is not None:

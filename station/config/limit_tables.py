@@ -337,10 +337,11 @@ def _limit(doc: YamlDocument, path: list[str | int], entry: _LimitModel,
         if raw is None:
             continue
         try:
-            bounds[key] = parse_quantity(raw, info.units)
+            value = parse_quantity(raw, info.units)
         except ValueError as exc:
             raise doc.error([*path, key], f"{param} limit: {exc}") from None
-        _refuse_absurd(doc, [*path, key], f"{param} limit", raw, bounds[key], info.units)
+        _refuse_absurd(doc, [*path, key], f"{param} limit", raw, value, info.units)
+        bounds[key] = value
     low, high = bounds["low"], bounds["high"]
     if low is None and high is None:
         raise doc.error(path, f"{param} limit has neither low nor high", "add low:, high: or both")

@@ -52,7 +52,7 @@ def check_bins_fit_handler(table: LimitTable, path: Path) -> None:
     a handler far fewer): refused before the lot, not after the first index."""
     doc = load_yaml_file(path)
     used: list[tuple[list[str | int], int]] = [
-        *((["grades", i, "hard_bin"], grade.hard_bin) for i, grade in enumerate(table.grades)),
+        *((list[str | int](["grades", i, "hard_bin"]), grade.hard_bin) for i, grade in enumerate(table.grades)),
         (["fail_hard_bin"], table.fail_hard_bin),
         (["contact", "hard_bin"], table.contact.hard_bin),
         (["tester_fault", "hard_bin"], table.tester_fault_hard_bin),

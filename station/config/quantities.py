@@ -108,7 +108,7 @@ def format_quantity(value: float, unit: str) -> str:
     """A value as an engineer writes it: '160 uV', '20 mA', '12 V', '120 dB'."""
     if unit not in ("V", "A", "s", "Ohm") or value == 0:
         return f"{value:g} {unit}"
-    prefixes = ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"))
+    prefixes: tuple[tuple[float, str], ...] = ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"))
     if unit != "Ohm":
         prefixes = prefixes[2:]
     scale, prefix = next(((s, p) for s, p in prefixes if abs(value) >= s), prefixes[-1])

@@ -9,7 +9,7 @@ checks its own conditions, station/kinds); it runs before anything is powered.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -252,7 +252,7 @@ def _build(doc: YamlDocument) -> Sequence:
                         f"each with a 'kind' out of: {', '.join(TEST_KINDS)}")
     steps = []
     for i, raw in enumerate(tests_raw):
-        path = ["tests", i]
+        path: list[str | int] = ["tests", i]
         if not isinstance(raw, dict) or "kind" not in raw:
             raise doc.error(path, "each test needs a 'kind'", f"one of: {', '.join(TEST_KINDS)}")
         kind = raw["kind"]
@@ -282,7 +282,7 @@ def _nplc(read: _Reader, value: Any, path: list) -> float:
 
 def _step(read: _Reader, spec: dict, path: list, index: int, kind: str, nplc: float, settle: Settle,
           stop_default: bool, span: float) -> TestStep:
-    common = dict(
+    common = TestStep(
         index=index, kind=kind, line=read.doc.line_of(path),
         name=read.text(spec.get("name", _DEFAULT_NAMES[kind]), [*path, "name"]),
         nplc=_nplc(read, spec["nplc"], [*path, "nplc"]) if "nplc" in spec else nplc,
@@ -291,13 +291,13 @@ def _step(read: _Reader, spec: dict, path: list, index: int, kind: str, nplc: fl
         stop_on_fail=read.boolean(spec.get("stop_on_fail", stop_default), [*path, "stop_on_fail"]),
     )
     if kind == "contact":
-        return TestStep(**common, retest=read.integer(spec.get("retest", 1), [*path, "retest"], 0, 3))
+        return replace(common, retest=read.integer(spec.get("retest", 1), [*path, "retest"], 0, 3))
     if kind == "cm_sweep":
-        return TestStep(**common, points=_sweep_points(read, spec, path, span))
+        return replace(common, points=_sweep_points(read, spec, path, span))
     if kind == "gain":
         if "levels" not in spec:
             raise read.doc.error(path, "a gain test needs 'levels'", "e.g. levels: [-4 V, 4 V]")
-        return TestStep(**common, levels_v=read.volt_list(spec["levels"], [*path, "levels"], "output levels", _FORCE))
+        return replace(common, levels_v=read.volt_list(spec["levels"], [*path, "levels"], "output levels", _FORCE))
     if kind == "supply_rejection":
         if "spans" not in spec:
             raise read.doc.error(path, "a supply_rejection test needs 'spans'", "e.g. spans: [8 V, 12 V]")
@@ -305,8 +305,8 @@ def _step(read: _Reader, spec: dict, path: list, index: int, kind: str, nplc: fl
         for j, value in enumerate(spans):
             if value <= 0:
                 raise read.doc.error([*path, "spans", j], "a supply span must be above zero")
-        return TestStep(**common, spans_v=spans)
-    return TestStep(**common)
+        return replace(common, spans_v=spans)
+    return common
 
 
 def _sweep_points(read: _Reader, spec: dict, path: list, span: float) -> tuple[RailPoint, ...]:

@@ -17,6 +17,7 @@ import time
 from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import partial
 
 from drivers.errors import InstrumentError
 from station import __version__
@@ -109,7 +110,7 @@ class LotRunner:
         self._seen_ids: set[str] = set()       # every id with a row: a later test is a retest
         self._final_bins: dict[str, int] = {}  # finished parts -> the hard bin they were sorted to
         self._consecutive_faults = 0
-        self._earlier_retries = {}
+        self._earlier_retries: dict[str, int] = {}
         if resume is not None:
             self._take_over(resume)
 
@@ -122,7 +123,7 @@ class LotRunner:
                 self._final_bins[pid] = hard
         self._seen_ids = resume.seen_ids
         self.tally.faulted_attempts = int(resume.header.get("faulted_attempts", 0))
-        self._earlier_retries: dict[str, int] = dict(resume.header.get("instrument_retries", {}))
+        self._earlier_retries = dict(resume.header.get("instrument_retries", {}))
 
     def header(self) -> dict:
         plan, table = self.plan, self.plan.table
@@ -244,7 +245,9 @@ class LotRunner:
             for outcome in faulted:  # the record of the failed attempt; the parts stay seated
                 self._log(outcome, test_t_ms)
             self._mark(todo)         # a resume keeps these rows
-            self._fault(faulted[0].error)
+            error = faulted[0].error
+            assert error is not None  # faulted outcomes carry their error
+            self._fault(error)
             sites = {o.site for o in faulted}
             pending = [pid if site in sites else None for site, pid in enumerate(todo, start=1)]
         self._consecutive_faults = 0
@@ -254,11 +257,11 @@ class LotRunner:
         self.writer.clear_in_progress()
         for outcome, _ in finished:
             verdict = outcome.verdict
-            self._tolerant(lambda o=outcome, v=verdict: self.bench.handler.assign_bin(o.site, v.hard_bin, v.reason))
+            self._tolerant(partial(self.bench.handler.assign_bin, outcome.site, verdict.hard_bin, verdict.reason))
         for site, pid in again.items():
             self.tell(f"site {site}: {pid} was tested before this lot was resumed; sorted to bin "
                       f"{self._final_bins[pid]} as logged")
-            self._tolerant(lambda s=site, b=self._final_bins[pid]: self.bench.handler.assign_bin(s, b, "as logged"))
+            self._tolerant(partial(self.bench.handler.assign_bin, site, self._final_bins[pid], "as logged"))
 
     def _mark(self, todo: list[str | None]) -> None:
         self.writer.mark_in_progress([pid for pid in todo if pid], presented_before=len(self._final_bins))

@@ -76,7 +76,11 @@ def load_datalogs(folders: Sequence[str | Path],
     """Read every folder (in order); `progress` is called after each one."""
     if not folders:
         raise DatalogError("no datalog folder given")
-    lots, parts_list, results_list, limits, warnings = [], [], [], [], []
+    lots: list = []
+    parts_list: list = []
+    results_list: list = []
+    limits: list = []
+    warnings: list[str] = []
     offset = 0
     for index, folder in enumerate(Path(f) for f in folders):
         lot, parts, results, notes = read_datalog_folder(folder)
@@ -153,7 +157,7 @@ def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]
     if missing:
         raise DatalogError(f"{path}: columns missing: {', '.join(missing)} (see docs/datalog-format.md)")
     try:
-        frame = pd.read_csv(path, dtype=dtypes, keep_default_na=False, na_values=empty,  # type: ignore[arg-type]
+        frame = pd.read_csv(path, dtype=dtypes, keep_default_na=False, na_values=empty,
                             engine="c", low_memory=False)
     except (ValueError, pd.errors.ParserError) as exc:
         raise DatalogError(f"{path}: a value does not fit its column: {str(exc).splitlines()[0]}") from None

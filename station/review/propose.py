@@ -83,14 +83,16 @@ def propose_limits(logs: Datalogs, sigma_k: float) -> list[Proposal]:
             if len(slopes) < 2:
                 continue
             mean, sd = _stats(slopes)
-            low = _sig(rejection_db(abs(mean) + sigma_k * sd), units)
+            floor = _sig(rejection_db(abs(mean) + sigma_k * sd), units)
             proposals.append(Proposal(param, region, units, len(slopes), mean, sd,
-                                      rejection_db(abs(mean) + sd), low, None,
+                                      rejection_db(abs(mean) + sd), floor, None,
                                       f"-20 log10(|mean| + {sigma_k:g} sigma) of {_SLOPE_OF[param]}"))
             continue
         if len(finite) < 2:
             continue
         mean, sd = _stats(finite)
+        low: float | None
+        high: float | None
         if param in ("cmrr", "psrr", "aol"):
             low, high, typical, how = mean - sigma_k * sd, None, mean, f"mean - {sigma_k:g} sigma (dB)"
         elif param == "vos":

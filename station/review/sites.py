@@ -111,5 +111,7 @@ def flag_sites(good: np.ndarray, failed: np.ndarray) -> np.ndarray:
     return flagged
 
 
-def _test(method: str, statistic: float, p_value: float) -> SiteTest:
-    return SiteTest(method, float(statistic), float(p_value), bool(p_value < FLAG_P))
+def _test(method: str, statistic: object, p_value: object) -> SiteTest:
+    # scipy's Monte Carlo Fisher test hands back one-element arrays on some small tables.
+    stat, p = (float(np.asarray(x, dtype=float).item()) for x in (statistic, p_value))
+    return SiteTest(method, stat, p, bool(p < FLAG_P))

@@ -54,6 +54,16 @@ def _table(path: Path):
         raise BadInput(exc.one_line()) from None
 
 
+def _refuse_unwritable(option: str, target: Path | None) -> None:
+    if target is None:
+        return
+    folder = target.parent
+    if not folder.is_dir():
+        raise BadInput(f"{option} {target}: the folder {folder} does not exist (create it, or write elsewhere)")
+    if target.is_dir():
+        raise BadInput(f"{option} {target}: is a folder (give a file name)")
+
+
 # ---- summary ----------------------------------------------------------------------------------
 
 @click.command("summary")
@@ -71,6 +81,8 @@ def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path |
     from station.review.export import write_csv
     from station.review.summary import summarise
 
+    for option, target in (("--csv", csv_file), ("--html", html_file)):
+        _refuse_unwritable(option, target)   # before the work, not after printing it all
     console = _console()
     logs = _read(datalogs, console)
     summary = summarise(logs, by=by)
@@ -96,7 +108,9 @@ def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path |
               help="The limit table to re-grade with.")
 @click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path), default=None,
               help="Write the re-binned parts.csv (same columns) into this folder.")
-def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None) -> None:
+@click.option("--any-product", is_flag=True,
+              help="Re-bin with a table written for another product name (e.g. one proposed from this lot).")
+def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None, any_product: bool) -> None:
     """Re-grade and re-bin a datalog offline with another limit table; show what moves."""
     from station.review.rebin import (
         RebinError,
@@ -104,6 +118,7 @@ def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None) -> Non
         grade_yield,
         move_matrix,
         rebin,
+        refuse_other_product,
         write_parts_csv,
     )
 
@@ -111,6 +126,8 @@ def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None) -> Non
     new = _table(limits_file)
     logs = _read((datalog,), console)
     try:
+        if not any_product:
+            refuse_other_product(logs, new)
         result = rebin(logs, new)
     except RebinError as exc:
         raise BadInput(str(exc)) from None

@@ -22,6 +22,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from station.datalog.header import header_problem
 from station.errors import Refused
 
 FORMAT = "ampscreen-datalog/1"
@@ -194,6 +195,11 @@ def read_lot_header(folder: Path) -> dict[str, Any]:
     if not isinstance(header, dict) or header.get("format") != FORMAT:
         found = header.get("format") if isinstance(header, dict) else None
         raise DatalogError(f"not a datalog header (format {found!r}, expected {FORMAT!r})", path=path)
+    problem = header_problem(header)
+    if problem is not None:
+        key, what = problem
+        raise DatalogError(what, path=path, column=key,
+                           hint="lot.json was edited or damaged: restore it from a copy of the datalog")
     return header
 
 

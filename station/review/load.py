@@ -7,7 +7,6 @@ tables with a DATALOG column (the folder's index) so that a shift of lots summar
 
 from __future__ import annotations
 
-import json
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -15,8 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from station.datalog.folder import FORMAT as DATALOG_FORMAT
-from station.datalog.folder import DatalogError
+from station.datalog.folder import DatalogError, read_lot_header, read_rows
 from station.datalog.folder import match_results_to_parts as match_rows
 
 # Explicit dtypes: no type sniffing (slow, and a numeric-looking PART_ID must stay text).
@@ -110,7 +108,7 @@ def read_datalog_folder(folder: Path) -> tuple[dict, pd.DataFrame, pd.DataFrame,
     if missing:
         raise DatalogError(f"{folder}: not a datalog folder: {', '.join(missing)} missing "
                            "(a datalog holds lot.json, parts.csv and results.csv)")
-    lot = _read_lot(folder / "lot.json")
+    lot = read_lot_header(folder)
     parts = _read_csv(folder / "parts.csv", PART_DTYPES, _PART_EMPTY)
     results = _read_csv(folder / "results.csv", RESULT_DTYPES, _RESULT_EMPTY)
     notes = []
@@ -137,18 +135,11 @@ def match_results_to_parts(results: pd.DataFrame, parts: pd.DataFrame) -> np.nda
     return np.where(position >= 0, parts["PART_SEQ"].to_numpy()[np.maximum(position, 0)], -1)
 
 
-def _read_lot(path: Path) -> dict:
-    try:
-        lot = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise DatalogError(f"{path}: cannot read the lot header: {exc}") from None
-    if not isinstance(lot, dict) or lot.get("format") != DATALOG_FORMAT:
-        found = lot.get("format") if isinstance(lot, dict) else None
-        raise DatalogError(f"{path}: not a datalog header (format {found!r}, expected {DATALOG_FORMAT!r})")
-    return lot
-
-
 def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]) -> pd.DataFrame:
+    """pandas' fast reader; when it objects, or a row is short, the format's row-by-row check
+    (station.datalog.folder.read_rows) names the file, line and column that are wrong."""
+    if _torn(path):
+        read_rows(path)               # raises: torn last line, with its line number
     try:
         header = pd.read_csv(path, nrows=0).columns
     except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
@@ -160,8 +151,25 @@ def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]
         frame = pd.read_csv(path, dtype=dtypes, keep_default_na=False, na_values=empty,
                             engine="c", low_memory=False)
     except (ValueError, pd.errors.ParserError) as exc:
+        read_rows(path)               # raises with the row, if the row check sees it
         raise DatalogError(f"{path}: a value does not fit its column: {str(exc).splitlines()[0]}") from None
+    # A row with fields missing at its end reads as empty cells; the last column that may
+    # never be empty tells (RESULT in results.csv, RETEST in parts.csv).
+    required = "RESULT" if "RESULT" in dtypes else "RETEST"
+    if frame[required].isna().any():
+        read_rows(path)
+        raise DatalogError(f"{path}: a row has no {required} (the file is damaged)")
     return frame
+
+
+def _torn(path: Path) -> bool:
+    """True if the file does not end with a line break (a write was cut short)."""
+    with open(path, "rb") as f:
+        f.seek(0, 2)
+        if f.tell() == 0:
+            return False
+        f.seek(-1, 2)
+        return f.read(1) != b"\n"
 
 
 def _concat_results(frames: list[pd.DataFrame]) -> pd.DataFrame:

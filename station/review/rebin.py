@@ -62,6 +62,15 @@ def regions_differ(old: LimitTable | None, new: LimitTable, span_v: float) -> bo
                for x, y in zip(a.vcm_range(span_v), b.vcm_range(span_v), strict=True))
 
 
+def refuse_other_product(logs: Datalogs, new: LimitTable) -> None:
+    """RebinError if the datalog is of another product than the table is written for."""
+    logged = {str(lot.get("product")) for lot in logs.lots if lot.get("product")}
+    if logged and logged != {new.product}:
+        raise RebinError(f"{logs.folders[0]} is a datalog of {', '.join(sorted(logged))}, the limit table "
+                         f"is for {new.product} (give a table for that product, or --any-product for a "
+                         "table derived from this data, such as one from `station limits propose`)")
+
+
 def rebin(logs: Datalogs, new: LimitTable) -> RebinResult:
     if len(logs.folders) != 1:
         raise RebinError("re-bin one datalog folder at a time")

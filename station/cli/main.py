@@ -10,7 +10,6 @@ turned into its one line and exit code here, in StationGroup.
 
 from __future__ import annotations
 
-import signal
 import sys
 import tempfile
 import time
@@ -38,7 +37,7 @@ from station.errors import (
     as_click_error,
     one_line,
 )
-from station.lot.stop_signals import LotInterrupted, raise_interrupted, signals_deferred
+from station.lot.stop_signals import LotInterrupted, StopRequests, signals_deferred, stop_requests
 
 DEFAULT_MAX_FAULTS = 3
 
@@ -96,18 +95,17 @@ def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] 
     """Plan, open the bench, run the lot with progress, print the summary. Returns the exit code.
 
     SIGTERM stops the lot the way Ctrl-C does; both, and any error, end in the safe state."""
-    previous = signal.signal(signal.SIGTERM, raise_interrupted)
-    try:
-        return _plan_and_run(job, console, write_truth)
-    except (LotInterrupted, KeyboardInterrupt) as exc:
-        # Before the lot loop (opening the bench): nothing was powered yet.
-        _say(console, f"stopped before the lot started: {exc or 'Ctrl-C'}", "bold red")
-        return EXIT_STOPPED
-    finally:
-        signal.signal(signal.SIGTERM, previous)
+    with stop_requests(lambda text: _say(console, text, "yellow")) as stops:
+        try:
+            return _plan_and_run(job, console, write_truth, stops)
+        except (LotInterrupted, KeyboardInterrupt) as exc:
+            # Before the lot loop (opening the bench): nothing was powered yet.
+            _say(console, f"stopped before the lot started: {exc or 'Ctrl-C'}", "bold red")
+            return EXIT_STOPPED
 
 
-def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None) -> int:
+def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None,
+                  stops: StopRequests) -> int:
     from station.cli.lot_console import LotProgress, bin_summary, lot_line
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
@@ -129,7 +127,8 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
         with LotProgress(console, job.expected_parts, job.lot_id) as progress:
             live.append(progress)
             runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
-                               resume=job.resume, tell=lambda text: _say(console, text, "yellow"))
+                               resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
+                               way_out=stops.way_out)
             tally = runner.run()
         with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:

@@ -28,7 +28,7 @@ from station.errors import EXIT_SOFTWARE, EXIT_STOPPED, Stopped  # exit codes of
 from station.lot.bench import Bench
 from station.lot.index_screen import IndexScreen, PartOutcome
 from station.lot.site_readings import SiteReader
-from station.lot.stop_signals import LotInterrupted, signals_deferred
+from station.lot.stop_signals import LotInterrupted, signals_deferred, signals_held
 
 __all__ = ["LotInterrupted", "LotRunner", "LotSettings", "LotStopped", "LotTally"]
 
@@ -91,8 +91,10 @@ class LotRunner:
     def __init__(self, plan: ScreenPlan, bench: Bench, writer: DatalogWriter, settings: LotSettings,
                  on_part: Callable[[PartRecord, LotTally], None] | None = None,
                  sleep: Callable[[float], None] = time.sleep, resume: ResumeState | None = None,
-                 tell: Callable[[str], None] = lambda text: None) -> None:
+                 tell: Callable[[str], None] = lambda text: None,
+                 way_out: Callable[[], None] = lambda: None) -> None:
         self.plan = plan
+        self.way_out = way_out     # told first thing on the way out: later signals stop nothing
         self.bench = bench
         self.writer = writer
         self.settings = settings
@@ -169,6 +171,7 @@ class LotRunner:
             # resumable (exit 3); the message names the error for the bug report.
             self._stop(f"station error: {type(exc).__name__}: {exc}", EXIT_STOPPED)
         finally:
+            self.way_out()
             with signals_deferred(self.tell):
                 self.safe_state_log = self.bench.safe_state()
                 if started:
@@ -275,7 +278,8 @@ class LotRunner:
             grade=verdict.grade if verdict.passed else None, passed=verdict.passed, test_t_ms=test_t_ms,
             retest=retest, fail_test=verdict.failing.result.test_num if verdict.failing else None,
             fault=outcome.fault, end_t=time.time())
-        self.writer.write_part(record, outcome.rows)
+        with signals_held():        # a stop never falls between a part's results and its row
+            self.writer.write_part(record, outcome.rows)
         self.tally.add(verdict.hard_bin, verdict.soft_bin, verdict.passed, verdict.grade, retest)
         self.tally.session_parts += 1
         self.on_part(record, self.tally)

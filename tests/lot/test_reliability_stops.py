@@ -132,3 +132,33 @@ def test_run_resume_against_the_live_handler_retests_the_seated_parts(tmp_path):
     parts, _ = assert_whole_parts(out)
     assert sorted(final_rows(parts)) == sorted(truth_ids) and len(parts) == len(truth_ids)
     assert {p["PART_ID"] for p in parts if p["RETEST"] == "1"} == interrupted
+
+
+@pytest.mark.parametrize("second", [0.06, 0.17, "burst"])
+def test_second_signal_after_the_first_keeps_exit_3_and_the_summary(tmp_path, second):
+    # SIGTERM, then SIGINT 60-170 ms later (the trial that once died by SIGINT, or printed only
+    # "stopped before the lot started"), or SIGINT every 50 ms through the whole way out.
+    sequence = write_sequence(tmp_path)
+    with served(tmp_path, parts=24) as (sim, bench):
+        out = tmp_path / "lot"
+        process = start(run_args(bench, sequence, out))
+        wait_for_rows(out, 4, process)
+        process.send_signal(signal.SIGTERM)
+        if second == "burst":
+            deadline = time.monotonic() + 4.0
+            while process.poll() is None and time.monotonic() < deadline:
+                time.sleep(0.05)
+                if process.poll() is None:
+                    process.send_signal(signal.SIGINT)
+        else:
+            time.sleep(second)
+            if process.poll() is None:
+                process.send_signal(signal.SIGINT)
+        stdout, stderr = process.communicate(timeout=60)
+        assert process.returncode == EXIT_STOPPED, stdout + stderr
+        assert_bench_safe(sim)
+    assert "stopped before the lot started" not in stdout
+    assert "lot stopped: stopped by signal SIGTERM" in stdout, stdout[-2000:]
+    assert "datalog:" in stdout and "Hard bins" in stdout
+    assert "Traceback" not in stderr
+    assert_whole_parts(out)

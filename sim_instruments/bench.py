@@ -77,7 +77,7 @@ class SimBench:
     def _common(self, role: str, number: int) -> dict:
         faults = FaultSettings(seed=self.settings.seed * 1000 + number)
         self._faults[role] = faults
-        return {"role": role, "serial": f"SB{self.settings.seed:04d}-{number:02d}",
+        return {"role": role, "serial": f"AS{self.settings.seed:04d}-{number:02d}",
                 "clock": self.clock, "faults": faults}
 
     def _build(self) -> None:

@@ -55,7 +55,7 @@ class Acquisition:
 
 
 class Dmm(Instrument):
-    model_name = "SBM-65"
+    model_name = "ASM-65"
 
     def __init__(self, model: BenchModel, index: int, seed: int, line_hz: float, **kwargs) -> None:
         self.model = model

@@ -14,7 +14,7 @@ READBACK_NOISE_V = 10e-6
 
 
 class ForceSource(Instrument):
-    model_name = "SBF-110"
+    model_name = "ASF-110"
 
     def __init__(self, model: BenchModel, seed: int, **kwargs) -> None:
         self.model = model

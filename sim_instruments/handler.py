@@ -21,7 +21,7 @@ END_OF_LOT = "END"
 
 
 class Handler(Instrument):
-    model_name = "SBH-40"
+    model_name = "ASH-40"
 
     def __init__(self, model: BenchModel, parts: list[PartTruth], index_s: float, skip_parts: int = 0,
                  **kwargs) -> None:

@@ -16,7 +16,7 @@ from sim_instruments.scpi_errors import ScpiError, error_text
 from sim_instruments.scpi_params import Arguments, integer, number
 from sim_instruments.scpi_tree import CommandTree
 
-MAKER = "SIMBENCH"
+MAKER = "AMPSCREEN-SIM"  # our simulated bench; an invented maker name
 FIRMWARE = "1.0"
 ERROR_QUEUE_DEPTH = 16
 
@@ -67,7 +67,7 @@ class ErrorQueue:
 class Instrument:
     """One SCPI instrument. Subclasses add their commands in `build` and defaults in `reset`."""
 
-    model_name = "SB-0"
+    model_name = "AS-0"
 
     def __init__(self, role: str, serial: str, clock: ModelClock, faults: FaultSettings) -> None:
         self.role = role

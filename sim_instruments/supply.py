@@ -16,7 +16,7 @@ VOLTAGE_NOISE_V = 20e-6    # MEAS:VOLT? read-back noise
 
 
 class Supply(Instrument):
-    model_name = "SBP-2215"
+    model_name = "ASP-2215"
 
     def __init__(self, model: BenchModel, seed: int, **kwargs) -> None:
         self.model = model

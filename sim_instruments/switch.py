@@ -13,7 +13,7 @@ SCANNER_BANK = 2
 
 
 class FixtureSwitch(Instrument):
-    model_name = "SBX-312"
+    model_name = "ASX-312"
 
     def __init__(self, model: BenchModel, **kwargs) -> None:
         self.model = model

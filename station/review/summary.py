@@ -88,10 +88,25 @@ def overview(logs: Datalogs) -> dict[str, float | int | str]:
         "retests": int(parts["RETEST"].sum()),
         "yield": good / (good + failed) if good + failed else float("nan"),
         "final yield": float((last["PASS"] == 1).sum() / last_decided.sum()) if last_decided.any() else float("nan"),
-        "test time per part (ms)": float(parts["TEST_T"].mean()) if len(parts) else float("nan"),
+        **index_times(parts),
         "elapsed (h)": hours,
         "parts per hour": len(parts) / hours if hours > 0 else float("nan"),
     }
+
+
+def index_times(parts: pd.DataFrame) -> dict[str, float]:
+    """Every part row carries its handler index's time (TEST_T: the sites of one index share
+    it). An index is a run of consecutive rows with the same TEST_T and rising site numbers;
+    the tester time per part is the index time shared out over the parts it tested."""
+    timed = parts[parts["TEST_T"].notna()]
+    if timed.empty:
+        return {"index time (ms)": float("nan"), "tester time per part (ms)": float("nan")}
+    t, site, log = (timed[c].to_numpy() for c in ("TEST_T", "SITE_NUM", "DATALOG"))
+    new_index = np.ones(len(timed), dtype=bool)
+    new_index[1:] = (t[1:] != t[:-1]) | (site[1:] <= site[:-1]) | (log[1:] != log[:-1])
+    index_ms = t[new_index]
+    return {"index time (ms)": float(index_ms.mean()),
+            "tester time per part (ms)": float(index_ms.sum() / len(timed))}
 
 
 def elapsed_hours(logs: Datalogs) -> float:

@@ -17,7 +17,7 @@ instruments:
   supply:  {resource: "TCPIP0::127.0.0.1::40001::SOCKET", driver: scpi-dual-supply, timeout: 5 s}
   force:   {resource: "TCPIP0::127.0.0.1::40002::SOCKET", driver: scpi-force-source}
   dmm:
-    - {resource: "TCPIP0::127.0.0.1::40003::SOCKET", driver: scpi-dmm, timeout: 1500 ms, idn: "SIMBENCH,DMM"}
+    - {resource: "TCPIP0::127.0.0.1::40003::SOCKET", driver: scpi-dmm, timeout: 1500 ms, idn: "AMPSCREEN-SIM,ASM-65"}
     - {resource: "TCPIP0::127.0.0.1::40004::SOCKET", driver: scpi-dmm, timeout: 5 s}
   switch:  {resource: "TCPIP0::127.0.0.1::40005::SOCKET", driver: scpi-fixture-switch, timeout: 5 s}
   handler: {resource: "TCPIP0::127.0.0.1::40006::SOCKET", driver: scpi-handler, timeout: 5 s}
@@ -55,7 +55,7 @@ def test_good_config_gives_si_floats_and_roles():
     assert config.max_rail_v == 12.0 and config.compliance_a == pytest.approx(0.020)
     assert list(config.instruments) == ["supply", "force", "dmm1", "dmm2", "switch", "handler"]
     assert config.instruments["dmm1"].timeout_s == pytest.approx(1.5)
-    assert config.instruments["dmm1"].idn == "SIMBENCH,DMM"
+    assert config.instruments["dmm1"].idn == "AMPSCREEN-SIM,ASM-65"
     assert config.instruments["force"].timeout_s == 5.0      # default
     assert config.visa_library == "@py"
 

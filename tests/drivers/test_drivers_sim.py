@@ -52,7 +52,7 @@ def bench(sim, config) -> Iterator[Bench]:
 def test_every_role_identifies(bench):
     identities = bench.identities()
     assert set(identities) == {"supply", "force", "dmm1", "dmm2", "switch", "handler"}
-    assert all(reply.startswith("SIMBENCH,") for reply in identities.values())
+    assert all(reply.startswith("AMPSCREEN-SIM,") for reply in identities.values())
     assert len(set(identities.values())) == 6     # six different instruments
 
 
@@ -237,7 +237,7 @@ def test_dropped_connection_then_reconnect(bench, sim):
             link.query("*IDN?")
     assert caught.value.role == "dmm2" and caught.value.command == "*IDN?"
     link.reconnect()
-    assert link.identify().startswith("SIMBENCH,")
+    assert link.identify().startswith("AMPSCREEN-SIM,")
 
 
 def test_garbage_reply_is_bad_reply(bench, sim):

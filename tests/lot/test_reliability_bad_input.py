@@ -138,11 +138,11 @@ def test_an_existing_datalog_is_never_overwritten_without_force(tmp_path, quiet_
 def test_wrong_identity_is_one_line_and_nothing_is_written(tmp_path, quiet_bench):
     sim, bench = quiet_bench
     config = yaml.safe_load(bench.read_text())
-    config["instruments"]["force"]["idn"] = "ACME"      # not what answers at that address
+    config["instruments"]["force"]["idn"] = "NOSUCH-MAKER,XQ-0"      # not what answers at that address
     wrong = tmp_path / "wrong.yaml"
     wrong.write_text(yaml.safe_dump(config))
     result = _run(wrong, out=tmp_path / "lot")
-    assert result.exit_code == 1 and "cannot open the bench" in result.output and "ACME" in result.output
+    assert result.exit_code == 1 and "cannot open the bench" in result.output and "NOSUCH-MAKER,XQ-0" in result.output
     assert "Traceback" not in result.output and not (tmp_path / "lot").exists()
     assert_bench_safe(sim)
 

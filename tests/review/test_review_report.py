@@ -49,7 +49,7 @@ def test_single_file_with_every_plot_inlined(report: Path) -> None:
 def test_header_carries_lot_hashes_and_instruments(report: Path) -> None:
     html = report.read_text()
     assert "LOT-T1" in html and "PX-401" in html
-    assert "SIMBENCH,DUAL-SUPPLY,0001,1.0" in html
+    assert "AMPSCREEN-SIM,ASP-2215,0001,1.0" in html
     assert re.search(r"sha256 [0-9a-f]{64}", html)
 
 

@@ -41,7 +41,10 @@ def test_counts_and_yields_match_pandas_on_parts_csv(folder: Path, summary) -> N
     assert o["yield"] == pytest.approx(good / (good + failed))
     last = parts.drop_duplicates("PART_ID", keep="last")
     assert o["final yield"] == pytest.approx((last["PASS"] == 1).sum() / last["PASS"].notna().sum())
-    assert o["test time per part (ms)"] == pytest.approx(parts["TEST_T"].mean())
+    # The sites of one index share its TEST_T, so the tester time per part is at most the
+    # index time and at least the index time over the site count.
+    assert o["tester time per part (ms)"] <= o["index time (ms)"] + 1e-9
+    assert o["tester time per part (ms)"] >= o["index time (ms)"] / parts["SITE_NUM"].nunique() - 1e-9
     for row in summary.grades.itertuples():
         expected = ((parts["PASS"] == 1) & (parts["GRADE"] == row.grade)).sum() / (good + failed)
         assert row.share == pytest.approx(expected)
@@ -207,3 +210,18 @@ def test_without_limits_yaml_the_logged_limit_columns_give_cpk(folder: Path, tmp
     full = summarise(load_datalogs([folder]))
     reference = full.cpk[(full.cpk["param"] == "vos") & (full.cpk["grade"] == "A")].iloc[0]
     assert row["cpk"] == pytest.approx(reference["cpk"])
+
+
+def test_index_times_share_each_index_over_its_parts() -> None:
+    # Hand-built: indexes of 800 ms (4 sites), 820 ms (4 sites), 700 ms (2 sites): the mean
+    # index is (800 + 820 + 700) / 3 = 773.3 ms and the tester time per part 2320 / 10 = 232 ms.
+    from station.review.summary import index_times
+    rows = [(800.0, s) for s in (1, 2, 3, 4)] + [(820.0, s) for s in (1, 2, 3, 4)] + [(700.0, s) for s in (1, 2)]
+    frame = pd.DataFrame({"TEST_T": [t for t, _ in rows], "SITE_NUM": [s for _, s in rows],
+                          "DATALOG": ["a"] * len(rows)})
+    times = index_times(frame)
+    assert times["index time (ms)"] == pytest.approx(2320 / 3)
+    assert times["tester time per part (ms)"] == pytest.approx(232.0)
+    # Two indexes of equal time back to back are still two indexes (site 1 starts again).
+    same = pd.DataFrame({"TEST_T": [500.0] * 4, "SITE_NUM": [1, 2, 1, 2], "DATALOG": ["a"] * 4})
+    assert index_times(same) == {"index time (ms)": 500.0, "tester time per part (ms)": 250.0}

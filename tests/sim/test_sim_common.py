@@ -25,7 +25,7 @@ def test_idn_names_simbench_and_four_fields(bench, role):
     reply = res[role].query("*IDN?")
     fields = reply.split(",")
     assert len(fields) == 4  # IEEE 488.2 *IDN?: maker, model, serial, firmware
-    assert fields[0] == "SIMBENCH"
+    assert fields[0] == "AMPSCREEN-SIM"
     assert reply == sim.identities()[role]
 
 

@@ -41,7 +41,7 @@ HARD_BINS = {"1": {"name": "Grade A", "pass": True}, "2": {"name": "Grade B", "p
 SOFT_BINS = {"1": {"name": "Grade A", "pass": True}, "2": {"name": "Grade B", "pass": True},
              "12": {"name": "Vos", "pass": False}, "13": {"name": "CMRR low region", "pass": False},
              "14": {"name": "CM step", "pass": False}, "90": {"name": "Tester fault", "pass": False}}
-INSTRUMENTS = {"supply": "SIMBENCH,DUAL-SUPPLY,0001,1.0", "dmm1": "SIMBENCH,DMM-6.5,0002,1.0"}
+INSTRUMENTS = {"supply": "AMPSCREEN-SIM,ASP-2215,0001,1.0", "dmm1": "AMPSCREEN-SIM,ASM-65,0002,1.0"}
 FILE_TEXTS = {"sequence.yaml": "tests: [iq, vos, cmrr]\n", "limits.yaml": "grades: [A, B]\n",
               "bench.yaml": "sites: 2\n"}
 

@@ -180,7 +180,9 @@ class ManualHandler:
             extra = f"type {EMPTY_SITE} to leave the site empty"
         if self._sites > 1 and site == 1:
             extra += f", {EMPTY_SITE} to leave it empty"
-        return f"Seat a part in site {site} and type its id ({extra})"
+        # Sites are unpowered between indexes (station/lot/index_screen.py opens every relay).
+        return (f"Seat a part in site {site} (site unpowered; ESD: wrist strap on, hold the part "
+                f"by its body) and type its id ({extra})")
 
     def _problem(self, site: int, answer: str, index: list[str | None]) -> str | None:
         if answer == "":

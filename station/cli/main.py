@@ -383,7 +383,12 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
         max_faults: int) -> None:
-    """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
+    """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal).
+
+    Before wiring real instruments, read the Safety section of the README: outputs are live
+    while a lot runs; use the fixture's interlock and your site's ESD and electrical-safety
+    rules. The station never exceeds the bench config's safety limits and turns every output
+    off on every way out, but it is no substitute for hardware interlocks or fuses."""
     lot_id = _lot_id(lot_id)
     operator = _operator(operator)
     resume = None

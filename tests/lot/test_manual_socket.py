@@ -44,6 +44,8 @@ def test_manual_dry_run_tests_the_parts_the_operator_seats(tmp_path: Path) -> No
     for line in run.stdout.splitlines():
         if "Seat a part in site" in line:
             assert line.startswith("Seat a part in site"), line
+            # The operator is told the site is unpowered and reminded of ESD handling.
+            assert "site unpowered; ESD: wrist strap on" in line, line
 
 
 @pytest.fixture()

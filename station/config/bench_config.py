@@ -6,7 +6,6 @@ floats in SI units. Every problem is one line: ``file:line: key: what is wrong (
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Annotated, Any
@@ -19,6 +18,7 @@ from drivers.registry import DRIVERS, known_drivers
 from drivers.supply import INSTRUMENT_MAX_A as SUPPLY_MAX_A
 from drivers.supply import INSTRUMENT_MAX_V as SUPPLY_MAX_V
 from drivers.supply import INSTRUMENT_MIN_A as SUPPLY_MIN_A
+from station.config.fields import quantity
 from station.config.files import (
     ConfigError,
     YamlDocument,
@@ -26,7 +26,7 @@ from station.config.files import (
     parse_yaml_text,
     validate_model,
 )
-from station.config.quantities import format_quantity, parse_quantity
+from station.config.quantities import format_quantity
 from station.judge.measure import loop_gain
 
 MAX_SITES = 4
@@ -35,17 +35,6 @@ MAX_SITES = 4
 MAX_RAIL_LIMIT_V = SUPPLY_MAX_V
 LINE_FREQUENCIES_HZ = (50.0, 60.0)
 DEFAULT_TIMEOUT_S = 5.0
-
-
-def _quantity(unit: str) -> Callable[[Any], float]:
-    def convert(value: Any) -> float:
-        try:
-            return parse_quantity(value, unit)
-        except ValueError as exc:
-            # A custom error keeps pydantic's "Value error, " prefix out of the message.
-            raise PydanticCustomError("bad_quantity", "{text}",
-                                      {"text": str(exc)}) from None
-    return convert
 
 
 def _resource(value: Any) -> str:
@@ -62,12 +51,13 @@ def _resource(value: Any) -> str:
     return value
 
 
-Seconds = Annotated[float, BeforeValidator(_quantity("s"))]
-Ohms = Annotated[float, BeforeValidator(_quantity("Ohm"))]
-Hertz = Annotated[float, BeforeValidator(_quantity("Hz"))]
-Volts = Annotated[float, BeforeValidator(_quantity("V"))]
-Amps = Annotated[float, BeforeValidator(_quantity("A"))]
 Resource = Annotated[str, BeforeValidator(_resource)]
+# Loop resistors beyond 1 GOhm are a typing slip, not a servo-loop fixture.
+LoopOhms = Annotated[float, quantity("Ohm", gt=0, le=1e9, why="a servo-loop resistor")]
+# The safety limits' own ranges are checked against the rail supply's in _check_limits, with
+# the supply's range in the message; here only that they are finite quantities.
+Volts = Annotated[float, quantity("V")]
+Amps = Annotated[float, quantity("A")]
 
 
 class _Strict(BaseModel):
@@ -77,7 +67,8 @@ class _Strict(BaseModel):
 class InstrumentEntry(_Strict):
     resource: Resource
     driver: str
-    timeout: Seconds = Field(DEFAULT_TIMEOUT_S, gt=0, le=600)
+    timeout: Annotated[float, quantity("s", gt=0, le=600, why="a reply later than 10 minutes is no reply")] = \
+        DEFAULT_TIMEOUT_S
     idn: str | None = None
 
 
@@ -90,11 +81,10 @@ class InstrumentsSection(_Strict):
 
 
 class FixtureSection(_Strict):
-    # Loop resistors beyond 1 GOhm are a typing slip, not a servo-loop fixture.
-    rf: Ohms = Field(gt=0, le=1e9)
-    rs: Ohms = Field(gt=0, le=1e9)
+    rf: LoopOhms
+    rs: LoopOhms
     sites: int = Field(strict=True)
-    line_frequency: Hertz = Field(gt=0, le=1000)
+    line_frequency: Annotated[float, quantity("Hz", gt=0, le=1000)]
     dmm_per_site: bool | None = Field(None, strict=True)
 
 

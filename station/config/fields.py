@@ -1,8 +1,8 @@
 """Pydantic field types shared by the config schemas (bench, sequence, limit tables, test kinds).
 
-Each type reads one value as written in a file and checks it is sane: quantities are finite,
-of the entry's dimension and inside a range (`quantity("V", gt=0, le=30)`), counts are whole
-numbers in a range, texts are not empty. A refusal is a pydantic error of type "config" whose
+Each validator reads one value as written in a file and checks it is sane: quantities are
+finite, of the entry's dimension and inside a range (`Annotated[float, quantity("V", gt=0,
+le=30)]`), counts are whole numbers in a range, texts are not empty. A refusal is a pydantic error of type "config" whose
 message says what is wrong and whose context carries the hint; station/config/files.py turns
 it into ``file:line: key: what (hint)``.
 """
@@ -49,8 +49,10 @@ def check_range(value: float, unit: str, *, ge: float | None = None, gt: float |
     low = gt if gt is not None else ge
     bad_low = (gt is not None and not value > gt) or (ge is not None and not value >= ge)
     bad_high = le is not None and not value <= le
+    shown = format_quantity(value, unit) if unit else f"{value:g}"
+    if gt == 0 and bad_low:  # the sign is the likelier mistake: named before the range
+        refuse(f"must be above zero, got {shown}", "write a positive value")
     if bad_low or bad_high:
-        shown = format_quantity(value, unit) if unit else f"{value:g}"
         reason = f" ({why})" if why else ""
         refuse(f"{shown} is outside the allowed range: must be "
                f"{_range_text(unit, low, le, gt is not None)}{reason}",
@@ -59,8 +61,9 @@ def check_range(value: float, unit: str, *, ge: float | None = None, gt: float |
 
 
 def quantity(unit: str, *, ge: float | None = None, gt: float | None = None, le: float | None = None,
-             why: str = "") -> Any:
-    """A field holding a quantity in `unit` ("V", "A", "Ohm", "s", "Hz", "V/V", "dB") as an
+             why: str = "") -> BeforeValidator:
+    """The validator of a field (`Annotated[float, quantity(...)]`) holding a quantity in
+    `unit` ("V", "A", "Ohm", "s", "Hz", "V/V", "dB") as an
     SI float, finite and inside the given bounds (`why` says where the bounds come from)."""
 
     def convert(value: Any) -> float:
@@ -70,31 +73,38 @@ def quantity(unit: str, *, ge: float | None = None, gt: float | None = None, le:
             refuse(str(exc), f"write it like {example_for(unit)!r}")
         return check_range(number, unit, ge=ge, gt=gt, le=le, why=why)
 
-    return Annotated[float, BeforeValidator(convert)]
+    return BeforeValidator(convert)
+
+
+def plain_float(value: Any) -> float | None:
+    """A number written without a unit (a YAML number or a numeric text), else None."""
+    if isinstance(value, int | float) and not isinstance(value, bool):
+        return float(value)
+    if isinstance(value, str):
+        try:
+            return float(value)
+        except ValueError:
+            return None
+    return None
 
 
 def plain_number(*, ge: float | None = None, gt: float | None = None, le: float | None = None,
-                 why: str = "") -> Any:
-    """A field holding a plain number (no unit), finite and inside the given bounds."""
+                 why: str = "") -> BeforeValidator:
+    """The validator of a field (`Annotated[float, plain_number(...)]`) holding a plain
+    number (no unit), finite and inside the given bounds."""
 
     def convert(value: Any) -> float:
-        number: float | None = None
-        if isinstance(value, int | float) and not isinstance(value, bool):
-            number = float(value)
-        elif isinstance(value, str):
-            try:
-                number = float(value)
-            except ValueError:
-                number = None
+        number = plain_float(value)
         if number is None or not math.isfinite(number):
             refuse(f"expected a plain finite number, got {value!r}", "write it without a unit, e.g. 2")
         return check_range(number, "", ge=ge, gt=gt, le=le, why=why)
 
-    return Annotated[float, BeforeValidator(convert)]
+    return BeforeValidator(convert)
 
 
-def count(low: int, high: int, why: str = "") -> Any:
-    """A field holding a whole number from `low` to `high`."""
+def count(low: int, high: int, why: str = "") -> BeforeValidator:
+    """The validator of a field (`Annotated[int, count(...)]`): a whole number from `low`
+    to `high`."""
 
     def convert(value: Any) -> int:
         if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
@@ -103,7 +113,7 @@ def count(low: int, high: int, why: str = "") -> Any:
                    f"write a number from {low} to {high}")
         return value
 
-    return Annotated[int, BeforeValidator(convert)]
+    return BeforeValidator(convert)
 
 
 def _flag(value: Any) -> bool:
@@ -122,8 +132,9 @@ Flag = Annotated[bool, BeforeValidator(_flag)]
 Text = Annotated[str, BeforeValidator(_text)]
 
 
-def rail_point(max_offset_v: float, why: str = "") -> Any:
-    """A field holding a common-mode point written against the rails ("V+ - 1.3 V")."""
+def rail_point(max_offset_v: float, why: str = "") -> BeforeValidator:
+    """The validator of a field (`Annotated[RailPoint, rail_point(...)]`) holding a
+    common-mode point written against the rails ("V+ - 1.3 V")."""
 
     def convert(value: Any) -> RailPoint:
         try:
@@ -134,4 +145,4 @@ def rail_point(max_offset_v: float, why: str = "") -> Any:
                     why=why or "distance of the point from its rail")
         return point
 
-    return Annotated[RailPoint, BeforeValidator(convert)]
+    return BeforeValidator(convert)

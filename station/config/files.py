@@ -203,8 +203,10 @@ def validate_model(doc: YamlDocument, model: type[M], *, context: dict[str, Any]
 
 def config_error_of(doc: YamlDocument, exc: ValidationError, model: type[BaseModel],
                     at: Sequence[str | int] = ()) -> ConfigError:
-    """The first error of a pydantic validation as a ConfigError."""
-    first = exc.errors()[0]
+    """The first error of a pydantic validation as a ConfigError; an unknown key goes first,
+    since a misspelt key (`settel:`) also explains the missing one it was meant to be."""
+    errors = exc.errors()
+    first = next((e for e in errors if e["type"] == "extra_forbidden"), errors[0])
     loc = [p for p in first["loc"] if isinstance(p, str | int) and p != "[key]"]
     message, hint = first["msg"], None
     context = first.get("ctx") or {}

@@ -15,9 +15,10 @@ import math
 from abc import ABC, abstractmethod
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, ClassVar, Protocol
+from typing import TYPE_CHECKING, Any, ClassVar, Protocol
 
 from station.config.regions import Region
+from station.config.step_spec import StepSpec
 from station.config.test_catalog import StepRows, StepTests, TestDef
 from station.judge.measure import Figure
 from station.lot.sweep_order import Condition
@@ -87,6 +88,11 @@ class TestKind(ABC):
     name: ClassVar[str]
     title: ClassVar[str]                   # the test's name when the sequence gives none
     checks_contact: ClassVar[bool] = False  # runs on every seated part and decides its contact
+    spec: ClassVar[type[StepSpec]] = StepSpec  # the keys of its entry in a sequence file
+
+    def step_fields(self, spec: Any) -> dict[str, Any]:
+        """The kind's own fields of the TestStep record, from its validated entry (`spec`)."""
+        return {}
 
     @abstractmethod
     def lay_out(self, step: TestStep, rows: StepRows, context: KindContext) -> None:

@@ -6,8 +6,10 @@ Only the parts that made contact are measured further; the others are binned by 
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Annotated, Any
 
+from station.config.fields import count
+from station.config.step_spec import StepSpec
 from station.config.test_catalog import StepRows, StepTests
 from station.judge.grading import contact_state
 from station.kinds.base import KindContext, SiteWork, StepScreen, TestKind, current_wait
@@ -16,10 +18,18 @@ if TYPE_CHECKING:
     from station.config.sequence import TestStep
 
 
+class ContactSpec(StepSpec):
+    retest: Annotated[int, count(0, 3, "re-seats of a part outside the window")] = 1
+
+
 class ContactCheck(TestKind):
     name = "contact"
     title = "Contact (Iq window)"
     checks_contact = True
+    spec = ContactSpec
+
+    def step_fields(self, spec: ContactSpec) -> dict[str, Any]:
+        return {"retest": spec.retest}
 
     def lay_out(self, step: TestStep, rows: StepRows, context: KindContext) -> None:
         rows.figure("Iq contact check", "contact_iq")

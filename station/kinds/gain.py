@@ -4,10 +4,11 @@ common-mode; AOL from the slope dVos/dVout."""
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from station.config.files import ConfigError
 from station.config.rail_points import rails_for
+from station.config.step_spec import ForceLevels, StepSpec
 from station.config.test_catalog import StepRows
 from station.judge.measure import Figure, aol_figures
 from station.kinds.base import KindContext, SweepKind
@@ -20,9 +21,17 @@ if TYPE_CHECKING:
 FORCE_LEVEL_LIMIT_V = 10.0  # the force source's own range, per docs/bench-commands.md
 
 
+class GainSpec(StepSpec):
+    levels: ForceLevels   # commanded output levels
+
+
 class OpenLoopGain(SweepKind):
     name = "gain"
     title = "Open-loop gain"
+    spec = GainSpec
+
+    def step_fields(self, spec: GainSpec) -> dict[str, Any]:
+        return {"levels_v": spec.levels}
 
     def lay_out(self, step: TestStep, rows: StepRows, context: KindContext) -> None:
         for level in step.levels_v:

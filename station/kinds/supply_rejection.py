@@ -4,9 +4,10 @@ from the slope dVos/dVs."""
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from station.config.rail_points import rails_for
+from station.config.step_spec import StepSpec, SupplySpans
 from station.config.test_catalog import StepRows
 from station.judge.measure import Figure, psrr_figures
 from station.kinds.base import KindContext, SweepKind
@@ -16,9 +17,17 @@ if TYPE_CHECKING:
     from station.config.sequence import TestStep
 
 
+class SupplyRejectionSpec(StepSpec):
+    spans: SupplySpans    # supply spans around a constant mid-point
+
+
 class SupplyRejection(SweepKind):
     name = "supply_rejection"
     title = "Supply rejection"
+    spec = SupplyRejectionSpec
+
+    def step_fields(self, spec: SupplyRejectionSpec) -> dict[str, Any]:
+        return {"spans_v": spec.spans}
 
     def lay_out(self, step: TestStep, rows: StepRows, context: KindContext) -> None:
         for span in step.spans_v:

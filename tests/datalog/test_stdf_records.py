@@ -1,7 +1,7 @@
 """STDF V4 encoder: field bytes, record header, and every record read back by pystdf.
 
-Outside checks: byte layouts are from the STDF V4 specification "from memory" (STDF-V4.md)
-and IEEE 754; whole records are read back with pystdf, the independent reader.
+Outside checks: byte layouts are from the STDF V4 specification, from memory (summarised in
+docs/stdf.md, "Encoding"), and IEEE 754; whole records are read back with pystdf, the independent reader.
 """
 
 from __future__ import annotations
@@ -49,7 +49,8 @@ def _parse(data: bytes) -> list[StdfRecord]:
 
 
 def test_record_header_is_length_type_subtype_little_endian() -> None:
-    # STDF-V4.md "Encoding": REC_LEN U2 (body length), REC_TYP U1, REC_SUB U1.
+    # STDF V4 record header (from memory; docs/stdf.md "Encoding"): REC_LEN U2 (body length),
+    # REC_TYP U1, REC_SUB U1.
     data = encode_record(15, 10, [("U4", 0x01020304), ("Cn", "ab")])
     assert data[:4] == bytes([7, 0, 15, 10])
     assert data[4:] == bytes([4, 3, 2, 1, 2]) + b"ab"

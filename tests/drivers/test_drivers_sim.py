@@ -143,7 +143,8 @@ def test_dmm_reads_overload_on_unpowered_site(bench):
 def test_two_dmms_integrate_at_once(bench):
     for dmm in bench.dmms:
         dmm.configure(nplc=50, range_v=10.0, autozero=True, samples=2)
-    # 2 samples x 50 NPLC / 50 Hz x 2 (autozero) = 4 s of integration (DESIGN.md section 2).
+    # 2 samples x 50 NPLC / 50 Hz x 2 (autozero) = 4 s of integration: N NPLC take N / f_line
+    # seconds, autozero doubles it (common practice, no source; docs/methods.md "Integration time").
     assert bench.dmms[0].integration_time_s == pytest.approx(4.0)
     started = time.perf_counter()
     bench.dmms[0].read_samples()

@@ -98,6 +98,7 @@ def test_dry_run_dB_figures_follow_the_published_formula(datalog) -> None:
     pairs = results[results["PARAM"].isin(["cmrr", "cmrr_slope"])].pivot_table(
         index=["PART_ID", "REGION"], columns="PARAM", values="RESULT", aggfunc="first").dropna()
     finite = pairs[np.isfinite(pairs["cmrr_slope"])]
-    # CMRR_dB = -20 log10 |dVos/dVcm| (DESIGN.md section 2; published definition).
+    # CMRR_dB = -20 log10 |dVos/dVcm|, the published definition: MIL-STD-883 TM 4003 (from
+    # memory; docs/methods.md "cm_sweep"). numpy computes the reference.
     np.testing.assert_allclose(finite["cmrr"], -20 * np.log10(finite["cmrr_slope"].abs()), rtol=1e-12)
     assert math.isfinite(finite["cmrr"].median())

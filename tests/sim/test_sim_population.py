@@ -53,7 +53,7 @@ def test_truth_csv_has_every_column_and_db_figures(tmp_path):
     assert len(rows) == 5 and tuple(rows[0].keys()) == TRUTH_COLUMNS
     row, part = rows[2], sim.truth()[2]
     assert row["PART_ID"] == "D00003"
-    # CMRR_dB = -20 log10 |slope| (DESIGN.md section 2)
+    # CMRR_dB = -20 log10 |slope| (common practice, no source; docs/methods.md "cm_sweep")
     assert float(row["CMRR_LOW_DB"]) == pytest.approx(-20 * math.log10(abs(part.cmrr_low_vv)))
     assert float(row["AOL_DB"]) == pytest.approx(20 * math.log10(part.aol_vv))
     assert float(row["CROSSOVER_VCM_V"]) == pytest.approx(5.0 - part.crossover_below_vplus_v)

@@ -70,7 +70,8 @@ def test_aol_from_the_force_step():
             vos[level] = sum(values) / len(values) / 1001.0
         part = sim.truth()[0]
         close_all(res)
-    aol = 8.0 / (vos[4.0] - vos[-4.0])  # AOL = dVout / dVos (DESIGN.md section 2)
+    # AOL = dVout / dVos (MIL-STD-883 TM 4004, method number from memory; docs/methods.md "gain").
+    aol = 8.0 / (vos[4.0] - vos[-4.0])
     assert aol == pytest.approx(part.aol_vv, rel=0.05)
     assert vos[4.0] == pytest.approx(vos_true(part, 0.0, 10.0, 4.0), abs=20e-9)
 

@@ -119,7 +119,7 @@ def test_set_rails_refuses_beyond_max_rail_and_reversed(bench, sim):
     assert sim.state()["supply"]["ch2"]["programmed_v"] == -12.0
 
 
-def test_supply_readback(bench):
+def test_supply_readback(bench, sim):
     bench.switch.power_sites({1})
     bench.supply.set_rails(5.0, -5.0)
     bench.supply.outputs(True)
@@ -127,7 +127,15 @@ def test_supply_readback(bench):
     time.sleep(0.1)
     assert bench.supply.measure_voltage("V+") == pytest.approx(5.0, abs=0.01)
     assert bench.supply.measure_voltage("V-") == pytest.approx(-5.0, abs=0.01)
-    assert bench.supply.measure_current("V+") >= 0.0
+    # The simulator's draw on V+ (sim_instruments/model.py): the seated part's Iq at the 10 V
+    # span, or only the fixture's leakage when site 1 holds no part or an open one. Read-back
+    # noise is 0.1 uA RMS, so 1 uA is 10 sigma and far apart from either.
+    from sim_instruments.model import OPEN_LEAKAGE_A
+
+    site = sim.state()["sites"][1]
+    part = next((p for p in sim.truth() if p.part_id == site["part"]), None)
+    expected = part.iq(10.0) if part is not None and site["contact"] else OPEN_LEAKAGE_A
+    assert bench.supply.measure_current("V+") == pytest.approx(expected, abs=1e-6)
     with pytest.raises(RequestRefused):
         bench.supply.measure_current("V0")  # type: ignore[arg-type]
 

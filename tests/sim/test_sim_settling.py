@@ -41,7 +41,8 @@ def test_dmms_integrate_concurrently():
         res = open_all(sim)
         dmms = [res[f"dmm{k}"] for k in range(1, 5)]
         for dmm in dmms:
-            dmm.write("ZERO:AUTO OFF;:VOLT:NPLC 10;:SAMP:COUN 1")  # 200 ms each
+            # 10 NPLC at 50 Hz: 200 ms each (N/50 s; common practice, no source)
+            dmm.write("ZERO:AUTO OFF;:VOLT:NPLC 10;:SAMP:COUN 1")
             dmm.query("*OPC?")
         start = time.perf_counter()
         for dmm in dmms:

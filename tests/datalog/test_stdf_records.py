@@ -72,7 +72,8 @@ def test_field_bytes(code: str, value: object, expected: bytes) -> None:
 def test_cn_is_cut_to_255_bytes_and_spelled_in_ascii() -> None:
     long = encode_field("Cn", "x" * 300)
     assert long[0] == 255 and long[1:] == b"x" * 255
-    # Non-ASCII text is spelled in ASCII (STDF text is ASCII; pystdf decodes it as such).
+    # Non-ASCII text is spelled in ASCII (STDF text is ASCII, from memory; pystdf decodes it as
+    # such).
     assert to_ascii("±5 µV, 10 kΩ, 25 °C, café, 日") == "+-5 uV, 10 kOhm, 25 degC, cafe, ?"
     wide = encode_field("Cn", "µ" * 300)
     assert wide[0] == 255 and wide[1:] == b"u" * 255

@@ -77,7 +77,7 @@ def test_unknown_command_reports_113(bench):
     link.write("FROB:NICATE 3")
     with pytest.raises(InstrumentReportedError) as caught:
         link.check_errors()
-    # -113 "Undefined header" (SCPI-1999 standard error list; docs/bench-commands.md).
+    # -113 "Undefined header" (SCPI-1999 vol. 2, 21.8 error list, from memory; docs/bench-commands.md).
     assert caught.value.codes == [-113]
     assert caught.value.role == "dmm1" and caught.value.command == "FROB:NICATE 3"
     link.check_errors()   # the queue is empty again
@@ -88,7 +88,8 @@ def test_out_of_range_raw_gives_222_but_driver_refuses_first(bench, sim):
     link.write("INST:NSEL 1;:VOLT 20")
     with pytest.raises(InstrumentReportedError) as caught:
         link.check_errors()
-    # -222 "Data out of range" (SCPI-1999; the supply spans +-15 V per docs/bench-commands.md).
+    # -222 "Data out of range" (SCPI-1999 vol. 2, 21.8, from memory; the supply spans +-15 V per
+    # docs/bench-commands.md).
     assert -222 in caught.value.codes
     bench.supply.set_rails(3.0, -3.0)
     before = link.transactions
@@ -170,6 +171,7 @@ def test_two_dmms_integrate_at_once(bench):
 def test_read_timeout_is_extended_by_integration_time(bench):
     dmm = bench.dmms[0]
     dmm.configure(nplc=100, range_v=10.0, autozero=True, samples=3)
+    # 3 x 100 NPLC / 50 Hz x 2 (autozero) = 12 model-s (N/50 s; common practice, no source)
     dmm.link.timeout_s = 0.2                # shorter than the 12 model-s / speed 20 = 0.6 s read
     assert len(dmm.read_samples()) == 3
 

@@ -1,7 +1,8 @@
 """STDF V4 encoder: field bytes, record header, and every record read back by pystdf.
 
 Outside checks: byte layouts are from the STDF V4 specification, from memory (summarised in
-docs/stdf.md, "Encoding"), and IEEE 754; whole records are read back with pystdf, the independent reader.
+docs/stdf.md, "Encoding"), and IEEE 754; whole records are read back with pystdf, the
+independent reader.
 """
 
 from __future__ import annotations

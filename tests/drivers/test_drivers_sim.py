@@ -77,7 +77,8 @@ def test_unknown_command_reports_113(bench):
     link.write("FROB:NICATE 3")
     with pytest.raises(InstrumentReportedError) as caught:
         link.check_errors()
-    # -113 "Undefined header" (SCPI-1999 vol. 2, 21.8 error list, from memory; docs/bench-commands.md).
+    # -113 "Undefined header" (SCPI-1999 vol. 2, 21.8 error list, from memory;
+    # docs/bench-commands.md).
     assert caught.value.codes == [-113]
     assert caught.value.role == "dmm1" and caught.value.command == "FROB:NICATE 3"
     link.check_errors()   # the queue is empty again

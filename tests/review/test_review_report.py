@@ -68,4 +68,5 @@ def test_renders_in_headless_chromium(report: Path, tmp_path: Path) -> None:
     assert data[:8] == b"\x89PNG\r\n\x1a\n"
     width, height = int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
     assert (width, height) == (1280, 2000)
-    assert len(data) > 50_000  # a blank page compresses to a few kB (from memory); the report is far richer
+    # A blank page compresses to a few kB (from memory); the report is far richer.
+    assert len(data) > 50_000

@@ -60,7 +60,8 @@ def test_timeout_swallows_the_next_replies(sim):
 def test_drop_closes_the_connection_and_new_ones_work(sim):
     inst = open_resource(sim.resources["force"], timeout_ms=500)
     inst.write("SIM:FAUL:DROP 2")
-    assert inst.query("*OPC?") == "1"   # message 1 of 2 (*OPC? answers 1: IEEE 488.2, 10.19; from memory)
+    # *OPC? answers 1 (IEEE 488.2, 10.19; from memory)
+    assert inst.query("*OPC?") == "1"   # message 1 of 2
     assert inst.query("*OPC?") == "1"   # message 2: served, then the connection closes
     with pytest.raises(VisaIOError):
         inst.query("*IDN?")

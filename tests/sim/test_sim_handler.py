@@ -61,7 +61,8 @@ def test_reseat_cures_an_open_part_that_allows_it():
         res["switch"].write("ROUT:CLOS (@101)")
         time.sleep(0.3 / 20)
         dmm = res["dmm1"]
-        assert dmm.query("READ?") == "+9.90000000E+37"  # SCPI overload (SCPI-1999 vol. 1; from memory)
+        # SCPI overload value (SCPI-1999 vol. 1; from memory)
+        assert dmm.query("READ?") == "+9.90000000E+37"
         assert float(res["supply"].query("INST:NSEL 1;:MEAS:CURR?")) < 5e-6  # Iq ~ 0: no contact
         res["handler"].write("HANDler:RESeat 1")
         time.sleep(0.5 / 20)

@@ -135,7 +135,7 @@ def test_channel_lists_and_ranges(res):
     assert switch.query("ROUT:CLOS? (@101:104)") == "0,0,0,0"
     switch.write("ROUT:CLOS (@105)")  # no site 5 on a 4-site fixture
     switch.write("ROUT:CLOS (@201,202)")  # two scanner relays at once
-    assert errors(switch) == [-222, -221]  # "Data out of range", "Settings conflict" (SCPI-1999, as above)
+    assert errors(switch) == [-222, -221]  # "Data out of range", "Settings conflict" (as above)
     assert switch.query("ROUT:CLOS? (@201,202)") == "0,0"
 
 

@@ -1,8 +1,8 @@
 """Seeded population of the fictional PX-401 op-amp (all figures invented for the demo).
 
 Every part draws from its own generator seeded with (seed, index), so part k of a lot is the
-same whatever the lot size; another seed gives another lot. Distributions follow the demo
-table in DESIGN.md section 7.
+same whatever the lot size; another seed gives another lot. Distributions: the table in
+docs/methods.md, "The invented demo population".
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """STDF V4 encoder: field types, the record header, and the records the station writes.
 
 Byte order is little-endian throughout (FAR.CPU_TYPE = 2). Each record is a dataclass whose
-attributes carry the standard's field names, in the standard's order (see STDF-V4.md); the
+attributes carry the standard's field names, in the standard's order (see docs/stdf.md); the
 STDF type of each field sits in the dataclass field metadata, so the order and the types are
 written down once. A field left at None is omitted when it is at the end of the record
 (trailing optional fields may be dropped) and written as its type's "missing" value otherwise.

@@ -1,6 +1,6 @@
 """Grading and binning of one part: its results against a limit table, best grade first.
 
-Pure functions over plain records. The rules (DESIGN.md section 3):
+Pure functions over plain records. The rules (docs/methods.md, "Grading and bins"):
 - a part takes the first grade (best first) all of whose limits pass;
 - a part that takes no grade fails to the soft bin of its first failing result, in execution
   order, under the loosest grade, and to the table's fail hard bin;

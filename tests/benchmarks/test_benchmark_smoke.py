@@ -20,6 +20,7 @@ KEYS = ("floor_ratio", "adaptive_speedup", "overhead_ratio", "multisite_speedup_
 def test_physics_floor_holds_at_least_the_integrations():
     sequence = load_sequence(DEMO_SEQUENCE)
     part = next(p for p in make_population(2, 10) if p.defect == "none")
+    # N NPLC at 50 Hz take N/50 s (common practice, no source).
     integrations = sum(t.nplc / 50.0 * t.average * len(t.points or t.levels_v or t.spans_v or [0])
                        for t in sequence.tests if t.kind in ("offset", "cm_sweep", "gain", "supply_rejection"))
     waits: list[float] = []

@@ -170,7 +170,8 @@ def test_bench_compliance_outside_the_supply_instrument_is_refused(amps):
 # ---- D. hard bins the handler cannot sort to ---------------------------------------------
 
 def test_lot_with_a_hard_bin_beyond_the_handler_is_refused_before_anything_runs(tmp_path: Path):
-    # `station limits check` accepts it (STDF bins go to 32767); the handler takes 1-99.
+    # `station limits check` accepts it (STDF bins go to 32767: STDF V4 HBR, from memory); the
+    # handler takes 1-99.
     limits = LIMITS.replace("  9: {name: Tester fault - retest", f"  {MAX_BIN + 1}: {{name: Tester fault - retest")
     limits = limits.replace("tester_fault: {hard_bin: 9,", f"tester_fault: {{hard_bin: {MAX_BIN + 1},")
     parse_limit_table(limits)

@@ -49,7 +49,8 @@ def error_of(text: str) -> ConfigError:
 def test_good_config_gives_si_floats_and_roles():
     config = parse_bench_config(GOOD, "bench.yaml")
     assert config.rf_ohm == 100e3 and config.rs_ohm == 100.0
-    # 1 + Rf/Rs = 1001 for 100 kOhm / 100 Ohm (DESIGN.md section 2, servo loop).
+    # 1 + Rf/Rs = 1001 for 100 kOhm / 100 Ohm: arithmetic of the servo-loop gain (MIL-STD-883
+    # TM 4001, method number from memory; docs/methods.md "The servo loop").
     assert config.loop_gain == pytest.approx(1001.0)
     assert config.sites == 2 and config.line_hz == 60.0 and config.dmm_per_site
     assert config.max_rail_v == 12.0 and config.compliance_a == pytest.approx(0.020)

@@ -41,7 +41,9 @@ def test_rows_are_on_disk_after_each_part_and_read_back_exactly(tmp_path) -> Non
     parts = pd.read_csv(tmp_path / "lot" / "parts.csv", keep_default_na=False)
     assert list(results.columns) == RESULT_COLUMNS
     assert list(parts.columns) == PART_COLUMNS
-    assert results["RESULT"].iloc[0] == 1.2345678901234e-05  # repr round-trips exactly
+    # repr round-trips exactly (Python's float repr is the shortest string that reads back to
+    # the same double; Python documentation, from memory)
+    assert results["RESULT"].iloc[0] == 1.2345678901234e-05
     assert math.isinf(results["RESULT"].iloc[2])
     assert results["PASS"].iloc[1] == 1 and pd.isna(results["PASS"].iloc[0])
     assert parts["PASS"].tolist() == ["1", ""]  # empty: tester fault, no pass/fail indication

@@ -1,8 +1,8 @@
 """Datalog folder -> lot.stdf, read back with pystdf (the independent reader).
 
 Expected values come from the hand-built CSVs (tests/support/stdf_helpers.py), re-read and counted
-with pandas, never from the exporter. Flag meanings: STDF V4 specification "from memory"
-(STDF-V4.md, "Flag bits").
+with pandas, never from the exporter. Flag meanings, record order and missing values: the
+STDF V4 specification, from memory (as listed in docs/stdf.md); pystdf reads the file.
 """
 
 from __future__ import annotations

@@ -1,7 +1,8 @@
 """STDF V4 encoder: field bytes, record header, and every record read back by pystdf.
 
-Outside checks: byte layouts are from the STDF V4 specification "from memory" (STDF-V4.md)
-and IEEE 754; whole records are read back with pystdf, the independent reader.
+Outside checks: byte layouts are from the STDF V4 specification, from memory (summarised in
+docs/stdf.md, "Encoding"), and IEEE 754; whole records are read back with pystdf, the
+independent reader.
 """
 
 from __future__ import annotations
@@ -49,7 +50,8 @@ def _parse(data: bytes) -> list[StdfRecord]:
 
 
 def test_record_header_is_length_type_subtype_little_endian() -> None:
-    # STDF-V4.md "Encoding": REC_LEN U2 (body length), REC_TYP U1, REC_SUB U1.
+    # STDF V4 record header (from memory; docs/stdf.md "Encoding"): REC_LEN U2 (body length),
+    # REC_TYP U1, REC_SUB U1.
     data = encode_record(15, 10, [("U4", 0x01020304), ("Cn", "ab")])
     assert data[:4] == bytes([7, 0, 15, 10])
     assert data[4:] == bytes([4, 3, 2, 1, 2]) + b"ab"
@@ -71,7 +73,8 @@ def test_field_bytes(code: str, value: object, expected: bytes) -> None:
 def test_cn_is_cut_to_255_bytes_and_spelled_in_ascii() -> None:
     long = encode_field("Cn", "x" * 300)
     assert long[0] == 255 and long[1:] == b"x" * 255
-    # Non-ASCII text is spelled in ASCII (STDF text is ASCII; pystdf decodes it as such).
+    # Non-ASCII text is spelled in ASCII (STDF text is ASCII, from memory; pystdf decodes it as
+    # such).
     assert to_ascii("±5 µV, 10 kΩ, 25 °C, café, 日") == "+-5 uV, 10 kOhm, 25 degC, cafe, ?"
     wide = encode_field("Cn", "µ" * 300)
     assert wide[0] == 255 and wide[1:] == b"u" * 255

@@ -77,7 +77,8 @@ def test_unknown_command_reports_113(bench):
     link.write("FROB:NICATE 3")
     with pytest.raises(InstrumentReportedError) as caught:
         link.check_errors()
-    # -113 "Undefined header" (SCPI-1999 standard error list; docs/bench-commands.md).
+    # -113 "Undefined header" (SCPI-1999 vol. 2, 21.8 error list, from memory;
+    # docs/bench-commands.md).
     assert caught.value.codes == [-113]
     assert caught.value.role == "dmm1" and caught.value.command == "FROB:NICATE 3"
     link.check_errors()   # the queue is empty again
@@ -88,7 +89,8 @@ def test_out_of_range_raw_gives_222_but_driver_refuses_first(bench, sim):
     link.write("INST:NSEL 1;:VOLT 20")
     with pytest.raises(InstrumentReportedError) as caught:
         link.check_errors()
-    # -222 "Data out of range" (SCPI-1999; the supply spans +-15 V per docs/bench-commands.md).
+    # -222 "Data out of range" (SCPI-1999 vol. 2, 21.8, from memory; the supply spans +-15 V per
+    # docs/bench-commands.md).
     assert -222 in caught.value.codes
     bench.supply.set_rails(3.0, -3.0)
     before = link.transactions
@@ -119,7 +121,7 @@ def test_set_rails_refuses_beyond_max_rail_and_reversed(bench, sim):
     assert sim.state()["supply"]["ch2"]["programmed_v"] == -12.0
 
 
-def test_supply_readback(bench):
+def test_supply_readback(bench, sim):
     bench.switch.power_sites({1})
     bench.supply.set_rails(5.0, -5.0)
     bench.supply.outputs(True)
@@ -127,7 +129,15 @@ def test_supply_readback(bench):
     time.sleep(0.1)
     assert bench.supply.measure_voltage("V+") == pytest.approx(5.0, abs=0.01)
     assert bench.supply.measure_voltage("V-") == pytest.approx(-5.0, abs=0.01)
-    assert bench.supply.measure_current("V+") >= 0.0
+    # The simulator's draw on V+ (sim_instruments/model.py): the seated part's Iq at the 10 V
+    # span, or only the fixture's leakage when site 1 holds no part or an open one. Read-back
+    # noise is 0.1 uA RMS, so 1 uA is 10 sigma and far apart from either.
+    from sim_instruments.model import OPEN_LEAKAGE_A
+
+    site = sim.state()["sites"][1]
+    part = next((p for p in sim.truth() if p.part_id == site["part"]), None)
+    expected = part.iq(10.0) if part is not None and site["contact"] else OPEN_LEAKAGE_A
+    assert bench.supply.measure_current("V+") == pytest.approx(expected, abs=1e-6)
     with pytest.raises(RequestRefused):
         bench.supply.measure_current("V0")  # type: ignore[arg-type]
 
@@ -143,7 +153,8 @@ def test_dmm_reads_overload_on_unpowered_site(bench):
 def test_two_dmms_integrate_at_once(bench):
     for dmm in bench.dmms:
         dmm.configure(nplc=50, range_v=10.0, autozero=True, samples=2)
-    # 2 samples x 50 NPLC / 50 Hz x 2 (autozero) = 4 s of integration (DESIGN.md section 2).
+    # 2 samples x 50 NPLC / 50 Hz x 2 (autozero) = 4 s of integration: N NPLC take N / f_line
+    # seconds, autozero doubles it (common practice, no source; docs/methods.md "Integration time").
     assert bench.dmms[0].integration_time_s == pytest.approx(4.0)
     started = time.perf_counter()
     bench.dmms[0].read_samples()
@@ -161,6 +172,7 @@ def test_two_dmms_integrate_at_once(bench):
 def test_read_timeout_is_extended_by_integration_time(bench):
     dmm = bench.dmms[0]
     dmm.configure(nplc=100, range_v=10.0, autozero=True, samples=3)
+    # 3 x 100 NPLC / 50 Hz x 2 (autozero) = 12 model-s (N/50 s; common practice, no source)
     dmm.link.timeout_s = 0.2                # shorter than the 12 model-s / speed 20 = 0.6 s read
     assert len(dmm.read_samples()) == 3
 

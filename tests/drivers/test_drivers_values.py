@@ -34,7 +34,8 @@ def test_bools_and_error_entries():
     assert parse_scpi_bool("1") and not parse_scpi_bool("OFF")
     with pytest.raises(ValueError):
         parse_scpi_bool("2")
-    # SCPI standard error text for -113 (docs/bench-commands.md).
+    # SCPI standard error text for -113 (SCPI-1999 vol. 2, 21.8, from memory;
+    # docs/bench-commands.md).
     assert parse_error_entry('-113,"Undefined header"') == (-113, "Undefined header")
     assert parse_error_entry('0,"No error"') == (0, "No error")
 

@@ -40,7 +40,8 @@ def by_key(figures: list[Figure]) -> dict[tuple[str, str | None], Figure]:
 
 
 def test_loop_gain_is_one_plus_rf_over_rs():
-    # DESIGN.md section 2: Rf = 100 kOhm, Rs = 100 Ohm gives 1001, not 1000.
+    # Servo-loop gain 1 + Rf/Rs (MIL-STD-883 TM 4001, method number from memory; docs/methods.md
+    # "The servo loop"): Rf = 100 kOhm, Rs = 100 Ohm gives 1001 (arithmetic), not 1000.
     assert loop_gain(100e3, 100.0) == pytest.approx(1001.0)
     with pytest.raises(MeasurementError):
         loop_gain(100e3, 0.0)
@@ -136,7 +137,7 @@ def test_cmrr_figures_per_region_and_full_range():
     # Reference library: numpy.polyfit for the region slope.
     assert figs[("cmrr_slope", "low")].value == pytest.approx(np.polyfit(low_x, low_y, 1)[0])
     assert figs[("cmrr_slope", "low")].units == "V/V"
-    # Formula: CMRR_dB = -20 log10 |slope| (DESIGN.md section 2).
+    # Formula: CMRR_dB = -20 log10 |slope| (common practice, no source; docs/methods.md "cm_sweep").
     assert figs[("cmrr", "low")].value == pytest.approx(-20 * math.log10(abs(figs[("cmrr_slope", "low")].value)))
     assert figs[("cmrr_slope", "high")].value == pytest.approx(high_slope, rel=1e-2)
     assert figs[("cmrr_slope", "high")].value < 0  # signed slope kept; dB positive

@@ -135,7 +135,8 @@ def test_gain_kind_reads_each_level_and_fits_the_slope() -> None:
         levels = [test.cond for test, _ in part.raw]
         readings = [value for _, value in part.raw]
         figures = {test.param: value for test, value in part.figures}
-        # Reference: numpy.polyfit (degree 1) for the slope; AOL in dB is -20 log10 |slope|.
+        # Reference: numpy.polyfit (degree 1) for the slope; AOL in dB is -20 log10 |slope|
+        # (MIL-STD-883 TM 4004, from memory; 20 log10(4e6) = 132.04 dB is arithmetic).
         assert figures["aol_slope"] == pytest.approx(np.polyfit(levels, readings, 1)[0], rel=1e-9)
         assert figures["aol"] == pytest.approx(20 * math.log10(4e6), abs=1e-6)
 

@@ -83,7 +83,8 @@ def test_measured_figures_agree_with_the_truth(datalog) -> None:
     np.testing.assert_allclose(vos[common], clean.loc[common, "VOS_LOW_V"], atol=0.5e-6)
     slope = results[results["PARAM"] == "cmrr_slope"].pivot_table(index="PART_ID", columns="REGION",
                                                                    values="RESULT", aggfunc="first")
-    # Low region: 6 points over 8 V, least-squares slope error well under 0.1 uV/V.
+    # Low region: 6 points over 8 V, least-squares slope error well under 0.1 uV/V (the slope's
+    # standard error is sigma / sqrt(sum (x - mean)^2): common practice, no source).
     np.testing.assert_allclose(slope.loc[common, "low"], clean.loc[common, "CMRR_LOW_VV"], atol=0.1e-6)
     # High region: 4 points over 1 V, so ~8x the leverage error of the low region.
     np.testing.assert_allclose(slope.loc[common, "high"], clean.loc[common, "CMRR_HIGH_VV"], atol=0.6e-6)
@@ -98,6 +99,7 @@ def test_dry_run_dB_figures_follow_the_published_formula(datalog) -> None:
     pairs = results[results["PARAM"].isin(["cmrr", "cmrr_slope"])].pivot_table(
         index=["PART_ID", "REGION"], columns="PARAM", values="RESULT", aggfunc="first").dropna()
     finite = pairs[np.isfinite(pairs["cmrr_slope"])]
-    # CMRR_dB = -20 log10 |dVos/dVcm| (DESIGN.md section 2; published definition).
+    # CMRR_dB = -20 log10 |dVos/dVcm|, the published definition: MIL-STD-883 TM 4003 (from
+    # memory; docs/methods.md "cm_sweep"). numpy computes the reference.
     np.testing.assert_allclose(finite["cmrr"], -20 * np.log10(finite["cmrr_slope"].abs()), rtol=1e-12)
     assert math.isfinite(finite["cmrr"].median())

@@ -70,7 +70,8 @@ def test_simulated_socket_refuses_a_seat_while_the_site_is_powered(sim: SimBench
         assert res["switch"].query("*OPC?") == "1"
         handler.write('SIM:SEAT 1,"HAND-2"')
         error = handler.query("SYST:ERR?")
-        assert error.startswith("-221,")                 # SCPI: settings conflict
+        # -221 "Settings conflict" (SCPI-1999 vol. 2, 21.8; from memory)
+        assert error.startswith("-221,")
         assert handler.query("HAND:IND?").split(",")[0] == "HAND-1"   # nothing moved
     finally:
         for resource in res.values():

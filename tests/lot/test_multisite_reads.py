@@ -97,7 +97,8 @@ def test_auto_settling_measures_the_noise_then_stops_once_the_residual_is_below_
         errors.append(value - 20e-6)
     assert reader.stats.noise_checks == 1           # measured once per NPLC
     assert max(durations) < 0.3                      # never ran into the bound
-    # The approach needs ln(2 uV / 75 nV) * 30 ms = 98 ms to fall below the noise.
+    # The approach needs ln(2 uV / 75 nV) * 30 ms = 98 ms to fall below the noise (arithmetic of
+    # the exponential approach).
     assert 0.06 < float(np.median(durations)) < 0.2
     assert float(np.sqrt(np.mean(np.square(errors)))) < 3 * 75e-9
 

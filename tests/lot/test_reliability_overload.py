@@ -1,5 +1,6 @@
-"""An overload reading (SCPI 9.9E37, docs/bench-commands.md) is an over-range result of the
-test: the part fails its limits, it is not a tester fault and not a missing number."""
+"""An overload reading (SCPI 9.9E37: SCPI-1999 vol. 1, from memory; docs/bench-commands.md) is
+an over-range result of the test: the part fails its limits, it is not a tester fault and not
+a missing number."""
 
 from __future__ import annotations
 

@@ -32,9 +32,11 @@ def _first_reading_after_power_up(ideal: bool) -> tuple[float, float, float]:
 
 def test_ideal_bench_reads_the_settled_value_at_once():
     reading, truth, took = _first_reading_after_power_up(ideal=True)
-    # 10 NPLC at 50 Hz would integrate 0.2 s; the ideal bench answers without waiting.
+    # 10 NPLC at 50 Hz would integrate 0.2 s (N/50 s; common practice, no source); the ideal
+    # bench answers without waiting.
     assert took < 0.1
-    # No transient: the reading is the settled node within the noise (~30 nV RTI at 10 NPLC).
+    # No transient: the reading is the settled node within the noise (~30 nV RTI at 10 NPLC,
+    # the simulator's invented noise model, sim_instruments/model.py).
     assert reading == pytest.approx(truth, abs=1001 * 0.3e-6)
 
 

@@ -21,7 +21,9 @@ from station.lot.settle_rule import (
 def test_noise_from_samples_matches_numpy_std_and_ignores_a_slow_drift():
     rng = np.random.default_rng(5)
     white = rng.normal(0.0, 2e-6, 4000)
-    # The successive-difference estimate agrees with numpy's standard deviation on white noise.
+    # The successive-difference estimate (von Neumann's mean square successive difference,
+    # Annals of Mathematical Statistics 12, 1941; from memory) agrees with numpy's standard
+    # deviation (the reference library) on white noise.
     assert noise_from_samples(white.tolist()) == pytest.approx(float(np.std(white)), rel=0.05)
     drift = white + np.linspace(0.0, 1e-3, white.size)  # a ramp 500 sigma high over the record
     assert noise_from_samples(drift.tolist()) == pytest.approx(2e-6, rel=0.06)
@@ -37,7 +39,8 @@ def test_typical_noise_is_the_median_over_sites():
 @pytest.mark.parametrize("tau", [0.01, 0.03, 0.1])
 def test_predicted_residual_is_exact_for_an_exponential_approach(tau):
     # y_k = c + a q^k: the residual left in y_k is a q^k, and the geometric series of the
-    # remaining differences gives |y_k - y_(k-1)| q / (1 - q) for it (sum of a geometric series).
+    # remaining differences gives |y_k - y_(k-1)| q / (1 - q) for it (sum of a geometric series:
+    # arithmetic; docs/methods.md "The noise-derived rule").
     c, a, dt = 3e-3, -2e-4, 0.02
     q = math.exp(-dt / tau)
     ys = [c + a * q**k for k in range(6)]

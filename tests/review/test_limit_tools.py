@@ -120,7 +120,8 @@ def test_propose_gives_limits_whose_predicted_yield_a_rebin_confirms(characteris
     assert low.low == pytest.approx(expected, abs=0.05)  # written with 4 significant digits
     vos = next(p for p in proposals if p.param == "vos")
     values = logs.results.loc[logs.results["PARAM"] == "vos", "RESULT"].to_numpy()
-    # typical = mean + 1 sigma (DESIGN.md section 2; common practice, no source), of |Vos| here.
+    # typical = mean + 1 sigma (common practice, no source; docs/methods.md "End-of-shift
+    # statistics"), of |Vos| here; numpy computes the reference.
     assert vos.typical == pytest.approx(abs(values.mean()) + values.std(ddof=1))
     assert vos.high == pytest.approx(abs(values.mean()) + 3 * values.std(ddof=1), rel=1e-3)
 

@@ -107,6 +107,7 @@ def test_a_moved_region_boundary_recomputes_cmrr_from_the_raw_points(logs) -> No
         # Reference: numpy's least-squares line through the low-region points.
         slope = np.polyfit(low["VCM"].to_numpy(), low["RESULT"].to_numpy(), 1)[0]
         assert figures.loc[(seq, "cmrr_slope", "low")] == pytest.approx(slope, rel=1e-6, abs=1e-15)
+        # CMRR_dB = -20 log10 |slope| (MIL-STD-883 TM 4003, from memory; docs/methods.md).
         assert figures.loc[(seq, "cmrr", "low")] == pytest.approx(-20 * np.log10(abs(slope)), rel=1e-9)
         step = points[(points["VCM"] >= 3.0 - 1e-9) & (points["VCM"] < 4.0 - 1e-9)]["RESULT"]
         assert figures.loc[(seq, "cm_step", "transition")] == pytest.approx(step.max() - step.min())

@@ -28,7 +28,7 @@ def test_single_file_with_every_plot_inlined(report: Path) -> None:
     html = report.read_text()
     images = re.findall(r'<img alt="([^"]*)" src="([^"]{0,30})', html)
     titles = [title for title, _ in images]
-    assert all(src.startswith("data:image/png;base64,") for _, src in images)
+    assert all(src.startswith("data:image/png;base64,") for _, src in images)  # data: URL, RFC 2397
     assert "Failure Pareto by soft bin" in titles
     assert "Yield by site" in titles
     assert "Yield by hour (UTC)" in titles
@@ -63,7 +63,10 @@ def test_renders_in_headless_chromium(report: Path, tmp_path: Path) -> None:
     subprocess.run(command, capture_output=True, timeout=120, check=False)
     assert png.is_file()
     data = png.read_bytes()
+    # PNG specification (W3C, 2nd edition; ISO/IEC 15948:2004): the 8-byte signature (5.2), then
+    # the IHDR chunk whose width and height are big-endian 4-byte integers at bytes 16-24 (11.2.2).
     assert data[:8] == b"\x89PNG\r\n\x1a\n"
     width, height = int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
     assert (width, height) == (1280, 2000)
-    assert len(data) > 50_000  # a blank page compresses to a few kB; the report is far richer
+    # A blank page compresses to a few kB (from memory); the report is far richer.
+    assert len(data) > 50_000

@@ -127,7 +127,9 @@ def test_cpk_per_grade_by_the_published_formula(folder: Path, summary) -> None:
                                    (reference["REGION"].fillna("") == (lim.region or "")), "RESULT"].to_numpy()
             values = values[np.isfinite(values)]
             mu, sigma = values.mean(), values.std(ddof=1)
-            # Cpk = min(USL - mu, mu - LSL) / (3 sigma), the published formula; one side if one limit.
+            # Cpk = min(USL - mu, mu - LSL) / (3 sigma), one side if one limit: the textbook
+            # process-capability index (common practice, no source; docs/methods.md).
+            # numpy gives mu and sigma.
             sides = [(lim.high - mu) / (3 * sigma)] if lim.high is not None else []
             sides += [(mu - lim.low) / (3 * sigma)] if lim.low is not None else []
             row = summary.cpk[(summary.cpk["param"] == lim.param) & (summary.cpk["region"] == (lim.region or "")) &
@@ -137,7 +139,8 @@ def test_cpk_per_grade_by_the_published_formula(folder: Path, summary) -> None:
 
 
 def test_cpk_function_two_sided_and_one_sided() -> None:
-    # mu 1, sigma 1, limits -2 and 7: min(6, 3) / 3 = 1 (published formula).
+    # mu 1, sigma 1, limits -2 and 7: min(6, 3) / 3 = 1 (arithmetic of the Cpk formula;
+    # common practice, no source).
     assert cpk(np.array([1.0]), np.array([1.0]), np.array([-2.0]), np.array([7.0]))[0] == pytest.approx(1.0)
     assert cpk(np.array([1.0]), np.array([1.0]), np.array([np.nan]), np.array([7.0]))[0] == pytest.approx(2.0)
 

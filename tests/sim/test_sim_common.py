@@ -24,7 +24,7 @@ def test_idn_names_simbench_and_four_fields(bench, role):
     sim, res = bench
     reply = res[role].query("*IDN?")
     fields = reply.split(",")
-    assert len(fields) == 4  # IEEE 488.2 *IDN?: maker, model, serial, firmware
+    assert len(fields) == 4  # IEEE 488.2 *IDN? (10.14, from memory): maker, model, serial, firmware
     assert fields[0] == "AMPSCREEN-SIM"
     assert reply == sim.identities()[role]
 
@@ -37,12 +37,14 @@ def test_error_queue_status_and_clear(bench, role):
     assert inst.query("*STB?") == "0"
     assert inst.query("SYST:ERR?") == '0,"No error"'
     inst.write("NOSUCH:HEADER 1")
-    # STB bit 2 = error queue not empty, bit 5 = event summary (IEEE 488.2 / SCPI-99)
+    # STB bit 5 = event summary (IEEE 488.2, 11.2; from memory), bit 2 = error queue not empty
+    # (SCPI-1999 vol. 1, status reporting; from memory)
     assert int(inst.query("*STB?")) & 0b100100 == 0b100100
     assert inst.query("SYST:ERR:COUN?") == "1"
     esr = int(inst.query("*ESR?"))
-    assert esr & 32  # bit 5: command error
+    assert esr & 32  # bit 5: command error (IEEE 488.2, 11.5.1; from memory)
     assert inst.query("*ESR?") == "0"  # cleared on read
+    # Reply form and texts: SCPI-1999 vol. 2, 21.8 (from memory).
     assert inst.query("SYSTem:ERRor:NEXT?") == '-113,"Undefined header"'
     assert inst.query("SYST:ERR?") == '0,"No error"'
     inst.write("NOSUCH")

@@ -60,6 +60,7 @@ def test_timeout_swallows_the_next_replies(sim):
 def test_drop_closes_the_connection_and_new_ones_work(sim):
     inst = open_resource(sim.resources["force"], timeout_ms=500)
     inst.write("SIM:FAUL:DROP 2")
+    # *OPC? answers 1 (IEEE 488.2, 10.19; from memory)
     assert inst.query("*OPC?") == "1"   # message 1 of 2
     assert inst.query("*OPC?") == "1"   # message 2: served, then the connection closes
     with pytest.raises(VisaIOError):
@@ -86,6 +87,7 @@ def test_error_push_through_scpi_and_api(sim):
     inst = open_resource(sim.resources["supply"])
     assert inst.query("*CLS;SIM:FAUL:ERR -350;*OPC?") == "1"  # processed before the API push
     sim.faults("supply").push_error(-222)
+    # The SYST:ERR? reply form and the texts: SCPI-1999 vol. 2, 21.8 (from memory).
     assert inst.query("SYST:ERR?") == '-350,"Queue overflow"'
     assert inst.query("SYST:ERR?") == '-222,"Data out of range"'
     inst.close()

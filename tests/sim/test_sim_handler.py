@@ -20,7 +20,8 @@ def test_lot_sequence_bins_and_end():
         seen: list[str] = []
         first = handler.query("HANDler:NEXT?").split(",")
         assert first == ["D00001", "D00002", "D00003", "D00004"]
-        # not binned yet: the query fails with -221 and gives no reply of its own
+        # not binned yet: the query fails with -221 and gives no reply of its own (code and text:
+        # SCPI-1999 vol. 2, 21.8; from memory)
         assert handler.query("HANDler:NEXT?;:SYST:ERR?") == '-221,"Settings conflict"'
         index = first
         while index != ["END"]:
@@ -36,7 +37,7 @@ def test_lot_sequence_bins_and_end():
         assert handler.query("HANDler:COUNt?") == "0"
         assert handler.query("HAND:BIN:COUN? 2") == "5"  # sites 1 and 3
         assert handler.query("HAND:BIN:COUN? 1") == "5"
-        handler.write("HANDler:BIN 1,100")
+        handler.write("HANDler:BIN 1,100")  # bins 1-99 are the simulated handler's own range
         assert handler.query("SYST:ERR?").startswith("-222")
         close_all(res)
     bins = {p.part_id: p.binned_hard_bin for p in sim.truth()}
@@ -60,6 +61,7 @@ def test_reseat_cures_an_open_part_that_allows_it():
         res["switch"].write("ROUT:CLOS (@101)")
         time.sleep(0.3 / 20)
         dmm = res["dmm1"]
+        # SCPI overload value (SCPI-1999 vol. 1; from memory)
         assert dmm.query("READ?") == "+9.90000000E+37"
         assert float(res["supply"].query("INST:NSEL 1;:MEAS:CURR?")) < 5e-6  # Iq ~ 0: no contact
         res["handler"].write("HANDler:RESeat 1")

@@ -42,7 +42,7 @@ def clean_bench():
 
 
 def test_loop_gain_formula():
-    assert loop_gain(100e3, 100.0) == GAIN  # G = 1 + Rf/Rs, published servo-loop formula
+    assert loop_gain(100e3, 100.0) == GAIN  # G = 1 + Rf/Rs (MIL-STD-883 TM 4001, from memory)
 
 
 def test_reading_over_true_offset_is_loop_gain(clean_bench):
@@ -132,11 +132,14 @@ def test_noise_falls_as_one_over_root_integration_time(clean_bench):
         values = np.array([float(v) for v in dmm.query("READ?").split(",")]) / GAIN
         spreads[nplc] = np.std(values, ddof=1)  # numpy reference
     ratio = spreads[0.2] / spreads[2.0]
-    assert ratio == pytest.approx(math.sqrt(10.0), rel=0.25)  # white noise: sigma ~ 1/sqrt(T)
+    # White noise averaged over T: sigma ~ 1/sqrt(T), so 10x the NPLC gives sqrt(10) less
+    # (the standard error of a mean; common practice, no source).
+    assert ratio == pytest.approx(math.sqrt(10.0), rel=0.25)
     part = parts["D00002"]
     expected = expected_noise_rti(0.2, 50.0, part, autozero=False)
     assert spreads[0.2] == pytest.approx(expected, rel=0.2)
-    # RTI noise at 1 NPLC, 50 Hz is in the 75-100 nV band the design asks for
+    # RTI noise at 1 NPLC, 50 Hz is in the 75-100 nV band the simulated fixture is built to
+    # (an invented demo figure, not an outside value)
     assert 75e-9 <= expected_noise_rti(1.0, 50.0, part, autozero=False) <= 100e-9
 
 
@@ -156,10 +159,11 @@ def test_one_nplc_at_50_hz_takes_20_ms():
         zeroed = time.perf_counter() - start
         close_all(res)
     assert 0.19 <= plain <= 0.40   # 10 x 20 ms, generous for a loaded machine
-    assert 0.39 <= zeroed <= 0.70  # autozero doubles each reading
+    assert 0.39 <= zeroed <= 0.70  # autozero doubles each reading (common practice, no source)
 
 
 def test_unpowered_site_reads_overload(clean_bench):
+    # SCPI reports an overload as 9.9E37 (SCPI-1999 vol. 1, numeric data; from memory).
     sim, res, _ = clean_bench
     power_up(res, sites=(1,))
     time.sleep(0.5 / 20)

@@ -52,7 +52,8 @@ def test_short_long_case_optional_and_suffix_forms(supply, command):
 
 
 def test_compound_message_relative_path(supply):
-    # "CURR" resolves from the SOURce subsystem of the previous "VOLT" (SCPI-99 6.2.4)
+    # "CURR" resolves from the SOURce subsystem of the previous "VOLT" (SCPI-1999 vol. 1, 6.2.4;
+    # from memory)
     supply.write("VOLT 2;CURR 0.03")
     assert supply.query("VOLT?;CURR?") == "+2.00000000E+00;+3.00000000E-02"
     # a common command in between leaves the path alone
@@ -85,6 +86,8 @@ def test_compound_queries_join_replies(res):
     ("OUTP MAYBE", -104),
 ])
 def test_errors_have_standard_codes(supply, command, code):
+    # The codes and their meanings: SCPI-1999 vol. 2, 21.8 (SYSTem:ERRor, the error list);
+    # from memory. The +-15 V and 100 uA ranges are the simulated supply's own.
     supply.write(command)
     assert errors(supply) == [code]
 
@@ -103,7 +106,7 @@ def test_min_max_def_and_boolean_forms(supply):
     assert float(supply.query("VOLT?")) == 15.0
     supply.write("VOLT MIN")
     assert float(supply.query("VOLT?")) == -15.0
-    supply.write("CURR 20MA")  # SCPI: MA is milliampere for current
+    supply.write("CURR 20MA")  # MA is milliampere (SCPI-1999 vol. 1, 7.7.3; from memory)
     assert float(supply.query("CURR?")) == pytest.approx(0.020)
     for text, state in (("ON", "1"), ("0", "0"), ("1", "1"), ("off", "0")):
         supply.write(f"OUTP {text}")
@@ -114,7 +117,9 @@ def test_min_max_def_and_boolean_forms(supply):
 def test_queue_overflow_keeps_sixteen_and_reports_350(supply):
     for _ in range(20):
         supply.write("NOPE")
-    assert supply.query("SYST:ERR:COUN?") == "16"  # SCPI-99: queue depth 16 here
+    # The depth (16) is the simulator's choice; on overflow the last entry becomes -350 "Queue
+    # overflow" (SCPI-1999 vol. 2, 21.8; from memory).
+    assert supply.query("SYST:ERR:COUN?") == "16"
     codes = errors(supply)
     assert codes == [-113] * 15 + [-350]
 
@@ -130,7 +135,7 @@ def test_channel_lists_and_ranges(res):
     assert switch.query("ROUT:CLOS? (@101:104)") == "0,0,0,0"
     switch.write("ROUT:CLOS (@105)")  # no site 5 on a 4-site fixture
     switch.write("ROUT:CLOS (@201,202)")  # two scanner relays at once
-    assert errors(switch) == [-222, -221]
+    assert errors(switch) == [-222, -221]  # "Data out of range", "Settings conflict" (as above)
     assert switch.query("ROUT:CLOS? (@201,202)") == "0,0"
 
 

@@ -41,7 +41,8 @@ def test_dmms_integrate_concurrently():
         res = open_all(sim)
         dmms = [res[f"dmm{k}"] for k in range(1, 5)]
         for dmm in dmms:
-            dmm.write("ZERO:AUTO OFF;:VOLT:NPLC 10;:SAMP:COUN 1")  # 200 ms each
+            # 10 NPLC at 50 Hz: 200 ms each (N/50 s; common practice, no source)
+            dmm.write("ZERO:AUTO OFF;:VOLT:NPLC 10;:SAMP:COUN 1")
             dmm.query("*OPC?")
         start = time.perf_counter()
         for dmm in dmms:
@@ -70,7 +71,8 @@ def test_aol_from_the_force_step():
             vos[level] = sum(values) / len(values) / 1001.0
         part = sim.truth()[0]
         close_all(res)
-    aol = 8.0 / (vos[4.0] - vos[-4.0])  # AOL = dVout / dVos (DESIGN.md section 2)
+    # AOL = dVout / dVos (MIL-STD-883 TM 4004, method number from memory; docs/methods.md "gain").
+    aol = 8.0 / (vos[4.0] - vos[-4.0])
     assert aol == pytest.approx(part.aol_vv, rel=0.05)
     assert vos[4.0] == pytest.approx(vos_true(part, 0.0, 10.0, 4.0), abs=20e-9)
 

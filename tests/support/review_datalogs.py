@@ -64,7 +64,8 @@ def cell(value: object) -> str:
 
 
 def draw_part(rng: np.random.Generator, wide_offset: bool) -> dict[str, float]:
-    """True parameters of one part (invented population, DESIGN.md section 7 style)."""
+    """True parameters of one part (invented population, in the style of docs/methods.md,
+    "The invented demo population")."""
     return {
         "vos": rng.normal(0.0, 110e-6 if wide_offset else 15e-6),
         "slope_low": rng.normal(0.0, 0.3e-6),

@@ -333,6 +333,9 @@ class _SimulatedSocket:
 
 def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> None:
     """The simulated lot of the folder, its handler starting after the parts already sorted."""
+    if "study" in resume.header:
+        raise Refused(f"{resume.folder}: a repeatability study is not resumed (its plan starts over): "
+                      "run `station study run` again with --force")
     recorded = resume.header.get("dry_run")
     if not isinstance(recorded, dict) or any(key not in recorded for key in _SIM_KEYS):
         raise Refused(f"{resume.folder}/lot.json: no record of the simulated lot (dry_run); "
@@ -444,6 +447,8 @@ def _register_datalog_tools() -> None:
 
     for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
         main.add_command(command)
+    from station.cli.study_commands import study_group
+    main.add_command(study_group)
 
 
 _register_datalog_tools()

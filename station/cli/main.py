@@ -447,6 +447,7 @@ def _register_datalog_tools() -> None:
 
     for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
         main.add_command(command)
+    from station.cli import qualify_commands  # noqa: F401  (adds limits set / guard)
     from station.cli.study_commands import study_group
     main.add_command(study_group)
 

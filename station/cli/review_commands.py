@@ -191,11 +191,17 @@ def limits_check(file: Path) -> None:
 @limits_group.command("show")
 @click.argument("file", type=click.Path(path_type=Path))
 @click.option("--grade", default=None, help="Show this grade only.")
-def limits_show(file: Path, grade: str | None) -> None:
+@click.option("--history", is_flag=True, help="Show the table's change records instead (limits set, limits guard).")
+def limits_show(file: Path, grade: str | None, history: bool) -> None:
     """A limit table in readable units, per grade and region."""
     from station.review.limit_tools import show_tables
 
     table = _table(file)
+    if history:
+        from station.review.limit_history import history_table
+
+        _console().print(history_table(table.changes, f"{file}: changes"))
+        return
     try:
         tables = show_tables(table, grade)
     except KeyError as exc:
@@ -213,8 +219,15 @@ def limits_diff(old: Path, new: Path) -> None:
     """What changed from OLD to NEW: limits added, removed, loosened, tightened; bins; regions."""
     from station.review.limit_tools import diff_table, diff_tables
 
-    changes = diff_tables(_table(old), _table(new))
+    old_table, new_table = _table(old), _table(new)
+    changes = diff_tables(old_table, new_table)
     console = _console()
+    records = new_table.changes[len(old_table.changes):] if new_table.changes[:len(old_table.changes)] == \
+        old_table.changes else new_table.changes
+    if records:
+        from station.review.limit_history import history_table
+
+        console.print(history_table(records, f"change records in {new} not in {old}"))
     if not changes:
         console.print("no changes")
         return

@@ -1,0 +1,125 @@
+"""`station limits guard` and `station limits set`: limit tables changed in place with the
+file's comments kept, the whole table checked, and a change record appended
+(station/config/limit_edit.py). Added to the `limits` group of review_commands.py."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+from rich.table import Table
+
+from station.cli.review_commands import BadInput, _console, limits_group
+from station.config.files import ConfigError
+from station.errors import Refused
+
+
+def _refuse_grade_order(editable, table, verb: str) -> None:
+    from station.config.limit_edit import grade_order_problems
+
+    for grade, param, region, why in grade_order_problems(table):
+        _, entry = editable.limit_entry(grade, param, region)
+        line = entry.lc.line + 1
+        raise Refused(f"{editable.path}:{line}: grade {grade} {param} {region or ''}: {why} "
+                      f"({verb} would make a better grade looser than the next; change that grade too)".replace("  ", " "))
+
+
+@limits_group.command("set")
+@click.argument("file", type=click.Path(path_type=Path))
+@click.option("--grade", required=True, help="Grade name, e.g. A.")
+@click.option("--param", required=True, help="Parameter, e.g. cmrr.")
+@click.option("--region", default=None, help="Region, for parameters that take one.")
+@click.option("--low", default=None, help='New low limit with its unit, e.g. "118 dB".')
+@click.option("--high", default=None, help='New high limit with its unit, e.g. "60 uV".')
+@click.option("--reason", required=True, help="Why (kept in the change record).")
+@click.option("--who", default=None, help="Who changes it [default: the login name].")
+def limits_set(file: Path, grade: str, param: str, region: str | None, low: str | None, high: str | None,
+               reason: str, who: str | None) -> None:
+    """Change one limit of FILE in place: the comments and layout kept, the whole table checked,
+    a change record appended (see `limits show --history`)."""
+    from station.config.limit_edit import read_editable, write_text, yaml_scalar
+
+    if low is None and high is None:
+        raise Refused("give --low, --high or both (the new limit with its unit)")
+    if not reason.strip():
+        raise Refused("--reason must say why the limit changes")
+    try:
+        editable = read_editable(file)
+        _, entry = editable.limit_entry(grade, param, region)
+        said = []
+        for side, value in (("low", low), ("high", high)):
+            if value is None:
+                continue
+            old = str(entry[side]) if side in entry else None
+            editable.set_value(entry, side, yaml_scalar(value.strip()))
+            what = f"grade {grade} {param}{' ' + region if region else ''} {side}"
+            editable.add_change(what, old, value.strip(), reason.strip(), who)
+            said.append(f"{what}: {old or 'none'} -> {value.strip()}")
+        text, table = editable.validated()
+        _refuse_grade_order(editable, table, "this change")
+    except ConfigError as exc:
+        raise BadInput(exc.one_line()) from None
+    write_text(file, text)
+    console = _console()
+    for line in said:
+        console.print(f"{file}:{entry.lc.line + 1}: {line}; change recorded", markup=False)
+
+
+@limits_group.command("guard")
+@click.argument("limits_file", type=click.Path(path_type=Path))
+@click.option("--study", "studies", multiple=True, required=True, type=click.Path(path_type=Path),
+              help="Study folder (station study run); repeat for several stations.")
+@click.option("--rule", type=click.Choice(["guarded", "simple"]), default="guarded", show_default=True,
+              help="guarded: acceptance = spec moved in by k u; simple: acceptance = spec.")
+@click.option("--k", "k", type=click.FloatRange(0, 10), default=2.0, show_default=True,
+              help="Coverage factor: the guard band is w = k u.")
+@click.option("--max-share", type=click.FloatRange(0, 1), default=0.25, show_default=True,
+              help="Warn where the guard bands take more than this share of a tolerance.")
+@click.option("--out", "out_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="The guard-banded limit table to write.")
+@click.option("--reason", default=None, help="Why (kept in the change record).")
+@click.option("--force", is_flag=True, help="Overwrite --out if it exists.")
+def limits_guard(limits_file: Path, studies: tuple[Path, ...], rule: str, k: float, max_share: float,
+                 out_file: Path, reason: str | None, force: bool) -> None:
+    """Write a copy of LIMITS_FILE whose acceptance limits sit inside the spec limits by k u (u:
+    the study's GRR per figure); both limits are kept in the file (spec_low/spec_high)."""
+    from station.config.limit_edit import read_editable, write_text
+    from station.config.limit_tables import load_limit_table
+    from station.datalog.folder import DatalogError
+    from station.qualify.guard import guard_table
+    from station.qualify.study import load_study, study_report
+
+    if out_file.exists() and not force:
+        raise Refused(f"--out {out_file}: exists (give another name, or --force)")
+    if out_file.resolve() == limits_file.resolve():
+        raise Refused("--out must be a new file: the spec table stays as it is")
+    try:
+        editable = read_editable(limits_file)
+        table = load_limit_table(limits_file)
+        report = study_report(load_study(list(studies)), table)
+        names = ", ".join(p.name for p in studies)
+        lines = guard_table(editable, table, report, rule, k, max_share, names)
+        editable.add_change("guard bands", "acceptance = spec", f"{rule} acceptance, w = {k:g} u",
+                            reason or f"guard bands from study {names}")
+        text, new_table = editable.validated(out_file)
+        _refuse_grade_order(editable, new_table, "the guard bands")
+    except ConfigError as exc:
+        raise BadInput(exc.one_line()) from None
+    except DatalogError as exc:
+        raise BadInput(str(exc)) from None
+    write_text(out_file, text)
+    console = _console()
+    view = Table(title=f"guard bands ({rule}, k = {k:g}) from {names}", header_style="bold", title_justify="left")
+    for column in ("grade", "figure", "spec", "u", "w", "acceptance", "share", "note"):
+        view.add_column(column)
+    from station.review.units import fmt
+
+    for g in lines:
+        view.add_row(g.grade, g.figure, g.spec, fmt(g.u, g.units, 3, True) if g.units else "",
+                     fmt(g.w, g.units, 3, True) if g.units else "", g.acceptance,
+                     "" if g.share != g.share else f"{100 * g.share:.1f} %", g.note)
+    console.print(view)
+    for g in lines:
+        if g.note.startswith("guard takes"):
+            console.print(f"WARNING: grade {g.grade} {g.figure}: {g.note}", style="bold yellow", markup=False)
+    console.print(f"guard-banded table: {out_file} (acceptance limits in low/high, spec limits in spec_low/spec_high)")

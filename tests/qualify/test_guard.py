@@ -75,6 +75,16 @@ def test_guard_command_writes_acceptance_and_spec_limits(study, tmp_path):
     rows = pd.read_csv(lot / "results.csv")
     logged = rows[(rows["PARAM"] == "vos") & (rows["GRADE"] == "A")]["HI_LIMIT"]
     assert logged.iloc[0] == pytest.approx(vos.high)
+    # STDF: acceptance in LO_LIMIT/HI_LIMIT, spec in the PTR's LO_SPEC/HI_SPEC (read by pystdf).
+    from station.datalog.stdf_export import write_stdf
+    from tests.support.stdf_helpers import of_type, read_stdf
+
+    ptrs = of_type(read_stdf(write_stdf(lot)), "Ptr")
+    vos_num = int(rows[(rows["PARAM"] == "vos")]["TEST_NUM"].iloc[0])
+    first = next(p for p in ptrs if p["TEST_NUM"] == vos_num)
+    assert first["HI_LIMIT"] == pytest.approx(vos.high, rel=1e-6)
+    assert (first["LO_SPEC"], first["HI_SPEC"]) == pytest.approx((-50e-6, 50e-6), rel=1e-6)
+    assert first["OPT_FLAG"] & 0x0C == 0          # bits 2/3 clear: both spec limits valid
 
 
 def test_guard_warns_when_it_takes_too_much_of_a_tolerance(study, tmp_path):

@@ -24,6 +24,29 @@ def _refuse_grade_order(editable, table, verb: str) -> None:
                       f"({verb} would make a better grade looser than the next; change that grade too)".replace("  ", " "))
 
 
+def check_fixture_resolution(table, bench_file: Path, sequence_file: Path | None) -> None:
+    """`limits check --bench`: every limit the fixture cannot resolve, one line each; exit 2 if any."""
+    from station.config.bench_config import load_bench_config
+    from station.config.resolution import resolution_problems
+    from station.config.sequence import load_sequence
+    from station.demo import DEMO_SEQUENCE
+
+    try:
+        bench = load_bench_config(bench_file)
+        sequence = load_sequence(sequence_file or DEMO_SEQUENCE)
+        problems = resolution_problems(bench, sequence, table)
+    except ConfigError as exc:
+        raise BadInput(exc.one_line()) from None
+    if bench.resolution is None:
+        click.echo(f"{bench_file}: states no fixture resolution (fixture.resolution): not checked")
+        return
+    for problem in problems:
+        click.echo(problem.one_line(), err=True)
+    if problems:
+        raise BadInput(f"{len(problems)} limit(s) the fixture of {bench_file} cannot resolve")
+    click.echo(f"every limit is within what the fixture of {bench_file} resolves")
+
+
 @limits_group.command("set")
 @click.argument("file", type=click.Path(path_type=Path))
 @click.option("--grade", required=True, help="Grade name, e.g. A.")

@@ -181,11 +181,20 @@ def limits_group() -> None:
 
 @limits_group.command("check")
 @click.argument("file", type=click.Path(path_type=Path))
-def limits_check(file: Path) -> None:
-    """Load a limit table: OK with a one-line summary, or the problem (exit 1)."""
+@click.option("--bench", "bench_file", type=click.Path(path_type=Path), default=None,
+              help="Also check every limit against what this bench's fixture can resolve.")
+@click.option("--sequence", "sequence_file", type=click.Path(path_type=Path), default=None,
+              help="The sequence the limits are measured with (for --bench) [default: the demo product's].")
+def limits_check(file: Path, bench_file: Path | None, sequence_file: Path | None) -> None:
+    """Load a limit table: OK with a one-line summary, or the problem (exit 2)."""
     from station.review.limit_tools import check_summary
 
-    click.echo(check_summary(_table(file)))
+    table = _table(file)
+    click.echo(check_summary(table))
+    if bench_file is not None:
+        from station.cli.qualify_commands import check_fixture_resolution
+
+        check_fixture_resolution(table, bench_file, sequence_file)
 
 
 @limits_group.command("show")

@@ -89,6 +89,21 @@ class InstrumentsSection(_Strict):
     handler: InstrumentEntry | None = None
 
 
+def _decibels(value: Any) -> float:
+    return _quantity("dB")(value)
+
+
+Decibels = Annotated[float, BeforeValidator(_decibels)]
+
+
+class ResolutionSection(_Strict):
+    """What the fixture can resolve (station/config/resolution.py)."""
+
+    dmm_noise: Volts = Field(ge=0, le=1.0)            # RMS of one DMM reading at the loop node
+    nplc: float = Field(1.0, gt=0, le=100)            # ... at this integration time
+    cmrr_limit: Decibels | None = Field(None, gt=0, le=300)   # the fixture's own CMRR, where it has one
+
+
 class FixtureSection(_Strict):
     # Loop resistors beyond 1 GOhm are a typing slip, not a servo-loop fixture.
     rf: Ohms = Field(gt=0, le=1e9)
@@ -96,6 +111,7 @@ class FixtureSection(_Strict):
     sites: int = Field(strict=True)
     line_frequency: Hertz = Field(gt=0, le=1000)
     dmm_per_site: bool | None = Field(None, strict=True)
+    resolution: ResolutionSection | None = None
 
 
 class SafetySection(_Strict):
@@ -121,6 +137,18 @@ class InstrumentConfig:
 
 
 @dataclass(frozen=True)
+class FixtureResolution:
+    dmm_noise_v: float          # RMS node volts of one reading at `nplc`
+    nplc: float
+    cmrr_limit_db: float | None
+    line: int | None            # line of fixture.resolution in the bench config
+
+    def reading_noise_rti(self, loop_gain: float, nplc: float) -> float:
+        """Input-referred RMS of one reading at `nplc` (white noise: 1/sqrt(integration time))."""
+        return self.dmm_noise_v * (self.nplc / nplc) ** 0.5 / loop_gain
+
+
+@dataclass(frozen=True)
 class BenchConfig:
     station: str
     visa_library: str
@@ -133,6 +161,7 @@ class BenchConfig:
     max_rail_v: float
     compliance_a: float
     source: Path | None = None
+    resolution: FixtureResolution | None = None   # None: the bench config states none
 
     @property
     def loop_gain(self) -> float:
@@ -181,11 +210,14 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
     if model.instruments.handler is not None:
         add("handler", model.instruments.handler)
     station = model.station or (source.stem if source is not None else "bench")
+    res = fixture.resolution
+    resolution = (FixtureResolution(res.dmm_noise, res.nplc, res.cmrr_limit, doc.line_of(["fixture", "resolution"]))
+                  if res is not None else None)
     return BenchConfig(station=station, visa_library=model.visa_library, instruments=instruments,
                        rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
-                       source=source)
+                       source=source, resolution=resolution)
 
 
 def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:

@@ -447,7 +447,8 @@ def _register_datalog_tools() -> None:
 
     for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
         main.add_command(command)
-    from station.cli import qualify_commands  # noqa: F401  (adds limits set / guard)
+    from station.cli.qualify_commands import correlate_command  # also adds limits set / guard
+    main.add_command(correlate_command)
     from station.cli.study_commands import study_group
     main.add_command(study_group)
 

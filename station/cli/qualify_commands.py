@@ -146,3 +146,63 @@ def limits_guard(limits_file: Path, studies: tuple[Path, ...], rule: str, k: flo
         if g.note.startswith("guard takes"):
             console.print(f"WARNING: grade {g.grade} {g.figure}: {g.note}", style="bold yellow", markup=False)
     console.print(f"guard-banded table: {out_file} (acceptance limits in low/high, spec limits in spec_low/spec_high)")
+
+
+@click.command("correlate")
+@click.option("--bench", "bench_path", type=click.Path(path_type=Path), required=True, help="Bench config (YAML).")
+@click.option("--units", "units_path", type=click.Path(path_type=Path), required=True,
+              help="Correlation units file: reference parts with reference values and tolerances.")
+@click.option("--out", type=click.Path(path_type=Path), required=True, help="Datalog folder of the correlation run.")
+@click.option("--sequence", "sequence_path", type=click.Path(path_type=Path), default=None,
+              help="Sequence [default: the demo product's].")
+@click.option("--limits", "limits_path", type=click.Path(path_type=Path), default=None,
+              help="Limit table [default: the demo product's].")
+@click.option("--lot", "lot_id", default=None, help="Lot id of the run [default: CORR-<date>-<time>].")
+@click.option("--operator", default="", help="Operator name for the datalog.")
+@click.option("--force", is_flag=True, help="Overwrite an existing folder.")
+def correlate_command(bench_path: Path, units_path: Path, out: Path, sequence_path: Path | None,
+                      limits_path: Path | None, lot_id: str | None, operator: str, force: bool) -> None:
+    """Test the correlation units on the bench (the handler presents them, or the operator seats
+    them) and compare each figure with its reference: exit 2 when any is out of correlation."""
+    import json
+    import sys
+    import time
+
+    from rich.console import Console
+
+    from station.cli.main import LotJob, _lot_id, _operator, _run_lot
+    from station.datalog.folder import LOT_JSON, write_atomically
+    from station.datalog.seal import seal_datalog
+    from station.demo import DEMO_LIMITS, DEMO_SEQUENCE
+    from station.qualify.correlation import correlate, load_units
+    from station.review.load import read_datalog_folder
+
+    try:
+        units = load_units(units_path)
+    except ConfigError as exc:
+        raise BadInput(exc.one_line()) from None
+    lot_id = _lot_id(lot_id) or time.strftime("CORR-%Y%m%d-%H%M%S")
+    console = Console()
+    job = LotJob(bench_path, sequence_path or DEMO_SEQUENCE, limits_path or DEMO_LIMITS, out, lot_id,
+                 _operator(operator), "run", force, len({r.unit for r in units.references}),
+                 extra_header={"correlation_run": {"units_file": str(units_path)}})
+    code = _run_lot(job, console)
+    if code != 0:
+        sys.exit(code)
+    _, _, results, _ = read_datalog_folder(out)
+    findings = correlate(results, units)
+    bad = [f for f in findings if not f.in_correlation]
+    header = json.loads((out / LOT_JSON).read_text(encoding="utf-8"))
+    header["correlation"] = {"units_file": str(units_path), "in_correlation": not bad,
+                             "figures": [f.record() for f in findings]}
+    write_atomically(out / LOT_JSON, json.dumps(header, indent=2) + "\n")
+    seal_datalog(out)                   # the manifest again, over the lot.json with the result
+    for finding in findings:
+        console.print(finding.line(), style=None if finding.in_correlation else "bold red", markup=False)
+    if bad:
+        first = bad[0]
+        raise Refused(f"station out of correlation: {first.line()}"
+                      + (f" (and {len(bad) - 1} more)" if len(bad) > 1 else "")
+                      + "; do not test: check the fixture and the instruments, then correlate again")
+    console.print(f"station in correlation on {len(findings)} figure(s) of "
+                  f"{len({f.ref.unit for f in findings})} unit(s); result in {out / LOT_JSON}")

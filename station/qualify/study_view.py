@@ -56,6 +56,10 @@ def notes(report: StudyReport) -> list[str]:
         if f.balanced.trimmed_cells:
             out.append(f"{f.name}: {f.balanced.trimmed_cells} cell(s) had more than {f.balanced.repeats} "
                        "values; the first ones kept")
+    low_ndc = [f"{f.name} ({f.anova.components.ndc})" for f in report.figures if f.anova.components.ndc < 5]
+    if low_ndc:
+        out.append("ndc under 5 for " + ", ".join(low_ndc) + ": the study's parts spread less than the "
+                   "gauge resolves there; pick parts that span the process, or read %GRR of tolerance only")
     out.extend(f"{name}: no components: {why}" for name, why in report.skipped.items())
     out.append("CMRR, PSRR and AOL are studied on their slope in V/V; a limit 'L dB' is the window "
                "|slope| <= 10^(-L/20), a tolerance of twice that.")

@@ -110,3 +110,15 @@ def test_report_refuses_a_folder_that_is_not_a_study(tmp_path):
     assert CliRunner().invoke(main, ["dry-run", "--parts", "4", "--speed", "20", "--out", str(out)]).exit_code == 0
     result = CliRunner().invoke(main, ["study", "report", str(out)])
     assert result.exit_code == 2 and "not a study" in result.output
+
+
+def test_two_stations_merge_into_station_site_appraisers(study, tmp_path):
+    other = tmp_path / "s2"
+    result = CliRunner().invoke(main, ["study", "run", "--parts", str(PARTS), "--repeats", str(REPEATS),
+                                       "--sites", "2", "--seed", str(SEED), "--bench-errors", "12",
+                                       "--station", "bench-7", "--speed", "20", "--out", str(other)])
+    assert result.exit_code == 0, result.output
+    report = study_report(load_study([study, other]), None)
+    assert report.appraiser_kind == "station/site" and report.stations == ["bench-7", "sim-bench"]
+    vos = _figure(report, "vos").anova
+    assert vos.appraisers == SITES + 2 and "bench-7/site 2" in vos.appraiser_means

@@ -422,14 +422,20 @@ def sim_group() -> None:
 @click.option("--single-dmm", is_flag=True, help="One DMM behind the scanner instead of one per site.")
 @click.option("--fault", "faults", multiple=True, metavar="ROLE:KIND=VALUE",
               help="Inject a fault, e.g. dmm1:latency=0.05, force:drop=100 (repeatable).")
+@click.option("--bench-errors", "bench_seed", type=int, default=None,
+              help="Give the bench its own errors (site offset, DMM gain, leakage) from this seed; "
+                   "with --truth they are written to <truth>.bench.json.")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
-              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...]) -> None:
+              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
+              bench_seed: int | None) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
+    from sim_instruments.bench_errors import BenchErrorSpec
     from sim_instruments.serve import parse_fault_option, serve_until_interrupted
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
-                           dmm_per_site=not single_dmm)
+                           dmm_per_site=not single_dmm,
+                           bench_errors=BenchErrorSpec(seed=bench_seed) if bench_seed is not None else None)
     parsed = []
     for text in faults:
         try:

@@ -122,3 +122,17 @@ def test_two_stations_merge_into_station_site_appraisers(study, tmp_path):
     assert report.appraiser_kind == "station/site" and report.stations == ["bench-7", "sim-bench"]
     vos = _figure(report, "vos").anova
     assert vos.appraisers == SITES + 2 and "bench-7/site 2" in vos.appraiser_means
+
+
+def test_a_measurement_missing_from_a_real_study_drops_that_part_and_says_so(study):
+    from station.qualify.study_view import notes
+
+    logs = load_study([study])
+    rows = logs.results
+    victim = rows[(rows["PARAM"] == "vos") & (rows["PART_ID"] == "D00002") & (rows["SITE_NUM"] == 3)].index[0]
+    logs.results = rows.drop(index=victim)       # as if that seat had failed contact
+    report = study_report(logs, None)
+    vos = _figure(report, "vos")
+    assert vos.balanced.dropped_parts == ("D00002",) and vos.anova.parts == PARTS - 1
+    assert _figure(report, "iq").anova.parts == PARTS          # other figures keep every part
+    assert any("vos: part(s) D00002 left out" in line for line in notes(report))

@@ -162,6 +162,7 @@ def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None, any_pr
                                     for i, v in row.items()])
         console.print(t)
     console.print(f"{result.moved()} of {len(result.after)} parts change bin.")
+    _escapes(console, datalog, result, new)
     for note in result.notes:
         console.print(f"note: {note}")
     if out_dir is not None:
@@ -170,6 +171,26 @@ def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None, any_pr
         except OSError as exc:
             raise BadInput(f"cannot write into {out_dir}: {exc}") from None
         console.print(f"re-binned parts written to {target}")
+
+
+def _escapes(console: Console, datalog: Path, result, new) -> None:
+    """On a dry run: escapes against the simulator's truth, as logged and re-binned."""
+    import pandas as pd
+
+    truth_file = datalog / "sim_truth.csv"
+    if not truth_file.is_file():
+        return
+    from station.qualify.escapes import escapes, true_grade_breaks
+
+    breaks = true_grade_breaks(pd.read_csv(truth_file, dtype={"PART_ID": str}), new)
+    before, after = escapes(result.before, breaks), escapes(result.after, breaks)
+    t = Table(title="Escapes against the simulator's truth", caption="parts in a grade whose true Vos, Iq, "
+              "CMRR low/high or PSRR break its spec limits", header_style=HEAD, title_justify="left")
+    for column in ("grade", "as logged", "re-binned"):
+        t.add_column(column, justify="left" if column == "grade" else "right")
+    for grade in breaks:
+        t.add_row(grade, str(before.get(grade, 0)), str(after.get(grade, 0)))
+    console.print(t)
 
 
 # ---- limits -----------------------------------------------------------------------------------

@@ -66,6 +66,8 @@ def test_guard_command_writes_acceptance_and_spec_limits(study, tmp_path):
     assert cmrr.spec_low == 120.0
     assert cmrr.low == pytest.approx(-20 * math.log10(1e-6 - 2 * grr["cmrr low"]), abs=1e-3)
     assert guarded.changes[-1]["what"] == "guard bands"
+    shown = CliRunner().invoke(main, ["limits", "show", str(out), "--grade", "A"])
+    assert "spec low" in shown.output and "k 2, u " in shown.output
     # The datalog keeps the acceptance limit in LO_LIMIT/HI_LIMIT: a dry run with the table.
     lot = tmp_path / "lot"
     run = CliRunner().invoke(main, ["dry-run", "--parts", "4", "--speed", "20", "--limits", str(out), "--out", str(lot)])

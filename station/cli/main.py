@@ -383,9 +383,11 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 @_RESUME
 @_MAX_FAULTS
+@click.option("--correlation", "correlation_dir", type=click.Path(path_type=Path), default=None,
+              help="Start only if this `station correlate` folder passed for this station (recorded in lot.json).")
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
-        max_faults: int) -> None:
+        max_faults: int, correlation_dir: Path | None) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
     lot_id = _lot_id(lot_id)
     operator = _operator(operator)
@@ -400,8 +402,14 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
         raise Refused("--lot is required (the lot id), unless --resume continues a lot")
     if out is None:
         raise Refused("--out is required (the datalog folder), unless --resume continues a lot")
+    extra = {}
+    if correlation_dir is not None:     # refused (exit 2) before anything is powered
+        from station.config.bench_config import load_bench_config
+        from station.qualify.correlation import correlation_gate
+
+        extra["correlation"] = correlation_gate(correlation_dir, load_bench_config(bench_path).station, time.time())
     job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
-                 stdf, resume, max_faults)
+                 stdf, resume, max_faults, extra)
     sys.exit(_run_lot(job, Console()))
 
 

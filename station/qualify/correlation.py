@@ -29,6 +29,7 @@ from pydantic import BaseModel, ConfigDict, Field, StrictStr
 from station.config.files import load_yaml_file, validate_model
 from station.config.parameters import PARAMETERS
 from station.config.quantities import parse_quantity
+from station.errors import Refused
 from station.review.units import fmt
 
 
@@ -129,3 +130,39 @@ def correlate(results: pd.DataFrame, units: UnitsFile) -> list[Finding]:
         measured = float(rows["RESULT"].iloc[-1]) if not rows.empty else None
         findings.append(Finding(ref, measured))
     return findings
+
+
+# A correlation older than this does not vouch for a lot (a shift; our rule, no source).
+MAX_CORRELATION_AGE_S = 12 * 3600.0
+
+
+def correlation_gate(folder: Path, station: str, now: float) -> dict[str, Any]:
+    """The record a lot keeps of the correlation run in `folder`; CorrelationRefused (one line)
+    if that run is not a passed correlation of this station within MAX_CORRELATION_AGE_S."""
+    from station.datalog.folder import DatalogError, read_lot_header
+
+    try:
+        header = read_lot_header(folder)
+    except DatalogError as exc:
+        raise CorrelationRefused(str(exc)) from None
+    record = header.get("correlation")
+    if not isinstance(record, dict):
+        raise CorrelationRefused(f"{folder}: not a correlation run (lot.json has no 'correlation'): "
+                                 "run station correlate first")
+    if header.get("station") != station:
+        raise CorrelationRefused(f"{folder}: correlated station {header.get('station')!r}, not this bench's "
+                                 f"{station!r}: correlate this station")
+    if not record.get("in_correlation"):
+        bad: dict[str, Any] = next((f for f in record.get("figures", []) if not f.get("ok")), {})
+        raise CorrelationRefused(f"{folder}: station out of correlation ({bad.get('figure', '?')} on unit "
+                                 f"{bad.get('unit', '?')}): fix the bench and correlate again; nothing tested")
+    ended = header.get("end_t")
+    if not isinstance(ended, int | float) or now - float(ended) > MAX_CORRELATION_AGE_S:
+        raise CorrelationRefused(f"{folder}: the correlation is older than {MAX_CORRELATION_AGE_S / 3600:g} h "
+                                 "(or has no end time): correlate again")
+    return {"folder": str(folder), "lot_id": header.get("lot_id"), "end_time": header.get("end_time"),
+            "in_correlation": True, "figures": len(record.get("figures", []))}
+
+
+class CorrelationRefused(Refused):
+    """The lot may not start: no passed, recent correlation of this station (exit 2)."""

@@ -52,3 +52,26 @@ def test_a_bad_units_file_is_refused_with_file_and_line(tmp_path, bench):
                                        "--out", str(tmp_path / "c")])
     assert result.exit_code == 2 and f"{units}:11:" in result.output
     assert not (tmp_path / "c").exists()       # nothing was run
+
+
+def test_a_lot_starts_only_on_a_passed_correlation_of_its_station(bench, tmp_path):
+    corr = tmp_path / "corr"
+    assert CliRunner().invoke(main, ["correlate", "--bench", str(bench), "--units", str(UNITS),
+                                     "--out", str(corr)]).exit_code == 0
+    with SimBench(SimSettings(seed=2, parts=4, sites=4, speed=20)) as sim:
+        lot_bench = tmp_path / "lot-bench.yaml"
+        sim.write_bench_config(lot_bench)
+        args = ["run", "--bench", str(lot_bench), "--sequence", str(demo_file("sequences", "px401_screen.yaml")),
+                "--limits", str(demo_file("limits", "px401.yaml")), "--lot", "L-1"]
+        result = CliRunner().invoke(main, [*args, "--out", str(tmp_path / "lot"), "--correlation", str(corr)])
+        assert result.exit_code == 0, result.output
+    record = json.loads((tmp_path / "lot" / "lot.json").read_text())["correlation"]
+    assert record["in_correlation"] is True and record["folder"] == str(corr)
+    # Out of correlation: the lot is refused before anything is powered or written.
+    header = json.loads((corr / "lot.json").read_text())
+    header["correlation"]["in_correlation"] = False
+    header["correlation"]["figures"][0]["ok"] = False
+    (corr / "lot.json").write_text(json.dumps(header))
+    result = CliRunner().invoke(main, [*args, "--out", str(tmp_path / "lot2"), "--correlation", str(corr)])
+    assert result.exit_code == 2 and "out of correlation (vos on unit D00001)" in result.output
+    assert not (tmp_path / "lot2").exists()

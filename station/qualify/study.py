@@ -63,18 +63,19 @@ class Tolerance:
 
 
 def tolerance_of(limit: Limit, mean: float) -> Tolerance | None:
-    """The tolerance a limit gives, in the units of the studied value (None: no usable limit)."""
+    """The tolerance a limit gives, in the units of the studied value (None: no usable limit).
+    The specification limits: of a guard-banded table, spec_low/spec_high."""
+    low, high = limit.spec
     if limit.units == "dB":
-        if limit.low is None:
+        if low is None:
             return None
-        edge = db_to_slope(limit.low)
-        return Tolerance("slope window", 2.0 * edge, f">= {limit.low:g} dB: |slope| <= {edge:.3g} V/V")
-    if limit.low is not None and limit.high is not None:
-        return Tolerance("two-sided", limit.high - limit.low,
-                         f"{fmt(limit.low, limit.units)} to {fmt(limit.high, limit.units, with_unit=True)}")
-    bound = limit.low if limit.low is not None else limit.high
+        edge = db_to_slope(low)
+        return Tolerance("slope window", 2.0 * edge, f">= {low:g} dB: |slope| <= {edge:.3g} V/V")
+    if low is not None and high is not None:
+        return Tolerance("two-sided", high - low, f"{fmt(low, limit.units)} to {fmt(high, limit.units, with_unit=True)}")
+    bound = low if low is not None else high
     assert bound is not None  # a limit has low, high or both (limit_tables checks it)
-    side = ">=" if limit.low is not None else "<="
+    side = ">=" if low is not None else "<="
     return Tolerance("one-sided", abs(bound - mean),
                      f"{side} {fmt(bound, limit.units, with_unit=True)} (mean to limit)")
 

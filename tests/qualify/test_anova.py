@@ -106,5 +106,8 @@ def test_tolerances_and_verdicts():
     step = Limit("cm_step", "transition", None, 150e-6, "V", 14, "Step")
     one = tolerance_of(step, 50e-6)
     assert one.kind == "one-sided" and one.pct_grr(1e-6) == pytest.approx(3.0)  # 3 x 1 uV / 100 uV
+    # A guard-banded limit is judged against its spec limits, not the acceptance limits.
+    guarded = Limit("vos", None, -48e-6, 48e-6, "V", 11, "Offset", spec_low=-50e-6, spec_high=50e-6)
+    assert tolerance_of(guarded, 0.0).width == pytest.approx(100e-6)
     assert [verdict(x) for x in (9.99, 10.0, 30.0, 30.01)] == [
         "acceptable", "conditional", "conditional", "not acceptable"]

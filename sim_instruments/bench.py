@@ -11,6 +11,7 @@ import threading
 from dataclasses import dataclass
 from pathlib import Path
 
+from sim_instruments.bench_errors import BenchErrorSpec, draw_bench_errors
 from sim_instruments.clock import ModelClock
 from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
@@ -20,6 +21,7 @@ from sim_instruments.instrument import Instrument
 from sim_instruments.model import DEFAULT_COMPLIANCE_A, BenchModel, FixtureSpec
 from sim_instruments.population import TRUTH_COLUMNS, PartTruth, make_population, truth_row
 from sim_instruments.server import CommandRecord, InstrumentServer
+from sim_instruments.study_plan import StudyPlan
 from sim_instruments.supply import Supply
 from sim_instruments.switch import FixtureSwitch
 
@@ -50,6 +52,11 @@ class SimSettings:
     # For resuming a lot: the handler starts after the first `skip_parts` parts of the lot,
     # as a real handler would after those were sorted in an earlier session.
     skip_parts: int = 0
+    # The bench's own measurement errors (site offset, DMM gain, fixture leakage), drawn from
+    # their own seed; None (the default): an exact bench.
+    bench_errors: BenchErrorSpec | None = None
+    # A repeatability study: the handler presents these few parts again and again.
+    study_plan: StudyPlan | None = None
 
 
 class SimBench:
@@ -63,8 +70,12 @@ class SimBench:
         self.settings = settings
         self.clock = ModelClock(settings.speed)
         self.parts = make_population(settings.seed, settings.parts, settings.defects)
+        dmms = settings.sites if settings.dmm_per_site else 1
+        self.errors = (draw_bench_errors(settings.bench_errors, settings.sites, dmms)
+                       if settings.bench_errors is not None else None)
         self.model = BenchModel(FixtureSpec(settings.sites, settings.rf_ohm, settings.rs_ohm,
-                                            settings.dmm_per_site), ideal=settings.ideal)
+                                            settings.dmm_per_site), ideal=settings.ideal,
+                                errors=self.errors)
         self.command_log: list[CommandRecord] = []
         self._log_lock = threading.Lock()
         self.resources: dict[str, str] = {}
@@ -91,7 +102,7 @@ class SimBench:
             self.instruments[role] = Dmm(m, k, s.seed, s.line_hz, **self._common(role, 2 + k))
         self.instruments["switch"] = FixtureSwitch(m, **self._common("switch", 10))
         self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
-                                              **self._common("handler", 11))
+                                              plan=s.study_plan, **self._common("handler", 11))
 
     # --- life cycle ----------------------------------------------------------------------
     def start(self) -> SimBench:
@@ -151,6 +162,14 @@ class SimBench:
             for part in self.truth():
                 writer.writerow({k: (repr(v) if isinstance(v, float) else v)
                                  for k, v in truth_row(part).items()})
+
+    def bench_errors_truth(self) -> dict | None:
+        """The bench's own errors as drawn (None when off), for lot.json's dry_run record."""
+        if self.errors is None or self.settings.bench_errors is None:
+            return None
+        truth: dict = {"seed": self.settings.bench_errors.seed}
+        truth.update(self.errors.as_dict(self.settings.rf_ohm, self.settings.rs_ohm))
+        return truth
 
     def state(self) -> dict:
         with self.model.lock:

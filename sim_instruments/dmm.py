@@ -185,7 +185,8 @@ class Dmm(Instrument):
                 part_sigma = self.model.node_noise(acq.site, acq.integration_s)
         range_v = range_for(mean) if acq.autorange else acq.range_v
         sigma = math.hypot(part_sigma, dmm_own_noise(range_v, acq.nplc, acq.autozero))
-        value = mean + float(self._rng.normal(0.0, sigma))
+        gain = 1.0 + self.model.errors.dmm_gain_error[self.index - 1]  # the bench's own error
+        value = gain * (mean + float(self._rng.normal(0.0, sigma)))
         if abs(value) > OVERRANGE * range_v:
             return OVERLOAD_TEXT
         return format_float(value)

@@ -2,7 +2,9 @@
 
 Parts come in lot order, one per site per index; each id is presented once. An index takes
 `index_s` model seconds, during which the sites are empty. `skip_parts` starts the lot after
-its first parts, as a handler does when a lot is resumed after those were sorted.
+its first parts, as a handler does when a lot is resumed after those were sorted. A study
+`plan` instead presents the same few parts index after index, each in every site
+(sim_instruments/study_plan.py).
 """
 
 from __future__ import annotations
@@ -15,6 +17,7 @@ from sim_instruments.population import PartTruth
 from sim_instruments.scpi_errors import ScpiError
 from sim_instruments.scpi_params import Arguments, QuotedString, Token, integer
 from sim_instruments.scpi_tree import CommandTree
+from sim_instruments.study_plan import StudyPlan
 
 EMPTY_SITE = "-"
 END_OF_LOT = "END"
@@ -24,7 +27,7 @@ class Handler(Instrument):
     model_name = "ASH-40"
 
     def __init__(self, model: BenchModel, parts: list[PartTruth], index_s: float, skip_parts: int = 0,
-                 **kwargs) -> None:
+                 plan: StudyPlan | None = None, **kwargs) -> None:
         if skip_parts < 0:
             raise ValueError("skip_parts must be 0 or more")
         self.model = model
@@ -33,6 +36,8 @@ class Handler(Instrument):
         self.next_part = min(skip_parts, len(parts))
         self.in_sites: list[PartTruth | None] = [None] * model.fixture.sites
         self.bins: Counter[int] = Counter()
+        self.plan = plan
+        self.next_index = 0          # study plan: the next index to present
         super().__init__(**kwargs)
 
     @property
@@ -48,12 +53,14 @@ class Handler(Instrument):
         tree.add("HANDler:BIN:COUNt", query=lambda b: str(self.bins[b]),
                  query_args=Arguments([integer(1, 99)]))
         tree.add("HANDler:RESeat", self._reseat, args=Arguments([site]))
-        tree.add("HANDler:COUNt", query=lambda: str(len(self.parts) - self.next_part))
+        tree.add("HANDler:COUNt", query=self._count)
         # A manual socket on the simulated bench: the operator seats the next part of the
         # simulated lot by hand, under the id they typed ("-" empties the site).
         tree.add("SIMulation:SEAT", self._seat_by_hand, args=Arguments([site, _quoted]))
 
     def _next(self) -> str:
+        if self.plan is not None:
+            return self._next_planned(self.plan)
         unbinned = [p for p in self.in_sites if p is not None and p.binned_hard_bin is None]
         if unbinned:
             raise ScpiError(-221, f"{unbinned[0].part_id} has no bin yet")
@@ -67,6 +74,34 @@ class Handler(Instrument):
         self._seat_all(batch + [None] * (self.sites - len(batch)))
         return self._seated()
 
+    def _next_planned(self, plan: StudyPlan) -> str:
+        """A study: the plan's next index, the same parts again and again. A part the plan
+        leaves in its site is not moved when the plan says not to re-seat."""
+        unbinned = [p for p in self.in_sites if p is not None and p.binned_hard_bin is None]
+        if unbinned:
+            raise ScpiError(-221, f"{unbinned[0].part_id} has no bin yet")
+        if self.next_index >= len(plan.indexes):
+            if any(p is not None for p in self.in_sites):
+                self._seat_all([None] * self.sites)
+            return END_OF_LOT
+        wanted = [self.parts[i] if i is not None else None for i in plan.indexes[self.next_index]]
+        wanted += [None] * (self.sites - len(wanted))
+        self.next_index += 1
+        stays = [not plan.reseat and p is not None and p is self.in_sites[k]
+                 for k, p in enumerate(wanted)]
+        if not all(stays):
+            self.clock.sleep(self.index_s)
+        with self.model.lock:
+            now = self.clock.now()
+            for k, part in enumerate(wanted, start=1):
+                if part is not None:
+                    part.binned_hard_bin = None      # each presentation is binned anew
+                if stays[k - 1]:
+                    continue
+                self.in_sites[k - 1] = part
+                self.model.seat(k, part, now, contact=part is not None and part.defect != "open")
+        return self._seated()
+
     def _seated(self) -> str:
         """The ids in the sites now, as NEXT? reported them (nothing moves)."""
         return ",".join(p.part_id if p else EMPTY_SITE for p in self.in_sites)
@@ -77,6 +112,12 @@ class Handler(Instrument):
             for k, part in enumerate(parts, start=1):
                 self.in_sites[k - 1] = part
                 self.model.seat(k, part, now, contact=part is not None and part.defect != "open")
+
+    def _count(self) -> str:
+        if self.plan is not None:
+            left = self.plan.indexes[self.next_index:]
+            return str(sum(i is not None for index in left for i in index))
+        return str(len(self.parts) - self.next_part)
 
     def _seat_by_hand(self, site: int, part_id: str) -> None:
         with self.model.lock:

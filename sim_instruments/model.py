@@ -20,6 +20,7 @@ import math
 import threading
 from dataclasses import dataclass
 
+from sim_instruments.bench_errors import BenchErrors, no_errors
 from sim_instruments.population import PartTruth
 from sim_instruments.settling import NodeHistory, settle_time
 
@@ -179,8 +180,11 @@ class OperatingPoint:
 class BenchModel:
     """Shared state of the fixture; callers hold `lock` around each group of calls."""
 
-    def __init__(self, fixture: FixtureSpec, ideal: bool = False) -> None:
+    def __init__(self, fixture: FixtureSpec, ideal: bool = False,
+                 errors: BenchErrors | None = None) -> None:
         self.fixture = fixture
+        # The bench's own measurement errors (sim_instruments/bench_errors.py); none by default.
+        self.errors = errors or no_errors(fixture.sites)
         # Ideal bench (overhead benchmark): nodes jump to their targets and DMM readings
         # take no time, so what remains of a test time is the station's own overhead.
         self.ideal = ideal
@@ -327,7 +331,9 @@ class BenchModel:
         if not MIN_SPAN_V <= span <= MAX_SPAN_V or abs(vcm) > span / 2.0 + INPUT_MARGIN_V:
             return SATURATED_NODE_V
         loaded = (300 + site) in self.relays
-        node = self.fixture.gain * vos_true(part, vcm, span, op.vout, loaded)
+        bench_error = (self.errors.site_offset_v[site - 1]
+                       + self.errors.leakage_slope(site, self.fixture.rf_ohm, self.fixture.rs_ohm) * vcm)
+        node = self.fixture.gain * (vos_true(part, vcm, span, op.vout, loaded) + bench_error)
         return max(-SATURATED_NODE_V, min(SATURATED_NODE_V, node))
 
     def _changed(self, now: float, settle_from: float) -> None:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import signal
 import threading
 from collections.abc import Callable
@@ -72,6 +73,9 @@ def serve_until_interrupted(settings: SimSettings, write_bench: Path | None = No
             signal.signal(signal.SIGTERM, previous)
         if truth_path is not None:
             bench.write_truth(truth_path)
+            errors = bench.bench_errors_truth()
+            if errors is not None:   # the bench's own errors, beside the parts' truth
+                Path(truth_path).with_suffix(".bench.json").write_text(json.dumps(errors, indent=2) + "\n")
 
 
 if __name__ == "__main__":

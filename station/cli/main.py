@@ -333,6 +333,9 @@ class _SimulatedSocket:
 
 def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> None:
     """The simulated lot of the folder, its handler starting after the parts already sorted."""
+    if "study" in resume.header:
+        raise Refused(f"{resume.folder}: a repeatability study is not resumed (its plan starts over): "
+                      "run `station study run` again with --force")
     recorded = resume.header.get("dry_run")
     if not isinstance(recorded, dict) or any(key not in recorded for key in _SIM_KEYS):
         raise Refused(f"{resume.folder}/lot.json: no record of the simulated lot (dry_run); "
@@ -380,9 +383,11 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 @_RESUME
 @_MAX_FAULTS
+@click.option("--correlation", "correlation_dir", type=click.Path(path_type=Path), default=None,
+              help="Start only if this `station correlate` folder passed for this station (recorded in lot.json).")
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
-        max_faults: int) -> None:
+        max_faults: int, correlation_dir: Path | None) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal).
 
     Before wiring real instruments, read the Safety section of the README: outputs are live
@@ -402,8 +407,14 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
         raise Refused("--lot is required (the lot id), unless --resume continues a lot")
     if out is None:
         raise Refused("--out is required (the datalog folder), unless --resume continues a lot")
+    extra = {}
+    if correlation_dir is not None:     # refused (exit 2) before anything is powered
+        from station.config.bench_config import load_bench_config
+        from station.qualify.correlation import correlation_gate
+
+        extra["correlation"] = correlation_gate(correlation_dir, load_bench_config(bench_path).station, time.time())
     job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
-                 stdf, resume, max_faults)
+                 stdf, resume, max_faults, extra)
     sys.exit(_run_lot(job, Console()))
 
 
@@ -424,14 +435,20 @@ def sim_group() -> None:
 @click.option("--single-dmm", is_flag=True, help="One DMM behind the scanner instead of one per site.")
 @click.option("--fault", "faults", multiple=True, metavar="ROLE:KIND=VALUE",
               help="Inject a fault, e.g. dmm1:latency=0.05, force:drop=100 (repeatable).")
+@click.option("--bench-errors", "bench_seed", type=int, default=None,
+              help="Give the bench its own errors (site offset, DMM gain, leakage) from this seed; "
+                   "with --truth they are written to <truth>.bench.json.")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
-              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...]) -> None:
+              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
+              bench_seed: int | None) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
+    from sim_instruments.bench_errors import BenchErrorSpec
     from sim_instruments.serve import parse_fault_option, serve_until_interrupted
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
-                           dmm_per_site=not single_dmm)
+                           dmm_per_site=not single_dmm,
+                           bench_errors=BenchErrorSpec(seed=bench_seed) if bench_seed is not None else None)
     parsed = []
     for text in faults:
         try:
@@ -449,6 +466,10 @@ def _register_datalog_tools() -> None:
 
     for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
         main.add_command(command)
+    from station.cli.qualify_commands import correlate_command  # also adds limits set / guard
+    main.add_command(correlate_command)
+    from station.cli.study_commands import study_group
+    main.add_command(study_group)
 
 
 _register_datalog_tools()

@@ -162,6 +162,7 @@ def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None, any_pr
                                     for i, v in row.items()])
         console.print(t)
     console.print(f"{result.moved()} of {len(result.after)} parts change bin.")
+    _escapes(console, datalog, result, new)
     for note in result.notes:
         console.print(f"note: {note}")
     if out_dir is not None:
@@ -170,6 +171,26 @@ def rebin_command(datalog: Path, limits_file: Path, out_dir: Path | None, any_pr
         except OSError as exc:
             raise BadInput(f"cannot write into {out_dir}: {exc}") from None
         console.print(f"re-binned parts written to {target}")
+
+
+def _escapes(console: Console, datalog: Path, result, new) -> None:
+    """On a dry run: escapes against the simulator's truth, as logged and re-binned."""
+    import pandas as pd
+
+    truth_file = datalog / "sim_truth.csv"
+    if not truth_file.is_file():
+        return
+    from station.qualify.escapes import escapes, true_grade_breaks
+
+    breaks = true_grade_breaks(pd.read_csv(truth_file, dtype={"PART_ID": str}), new)
+    before, after = escapes(result.before, breaks), escapes(result.after, breaks)
+    t = Table(title="Escapes against the simulator's truth", caption="parts in a grade whose true Vos, Iq, "
+              "CMRR low/high or PSRR break its spec limits", header_style=HEAD, title_justify="left")
+    for column in ("grade", "as logged", "re-binned"):
+        t.add_column(column, justify="left" if column == "grade" else "right")
+    for grade in breaks:
+        t.add_row(grade, str(before.get(grade, 0)), str(after.get(grade, 0)))
+    console.print(t)
 
 
 # ---- limits -----------------------------------------------------------------------------------
@@ -181,21 +202,36 @@ def limits_group() -> None:
 
 @limits_group.command("check")
 @click.argument("file", type=click.Path(path_type=Path))
-def limits_check(file: Path) -> None:
-    """Load a limit table: OK with a one-line summary, or the problem (exit 1)."""
+@click.option("--bench", "bench_file", type=click.Path(path_type=Path), default=None,
+              help="Also check every limit against what this bench's fixture can resolve.")
+@click.option("--sequence", "sequence_file", type=click.Path(path_type=Path), default=None,
+              help="The sequence the limits are measured with (for --bench) [default: the demo product's].")
+def limits_check(file: Path, bench_file: Path | None, sequence_file: Path | None) -> None:
+    """Load a limit table: OK with a one-line summary, or the problem (exit 2)."""
     from station.review.limit_tools import check_summary
 
-    click.echo(check_summary(_table(file)))
+    table = _table(file)
+    click.echo(check_summary(table))
+    if bench_file is not None:
+        from station.cli.qualify_commands import check_fixture_resolution
+
+        check_fixture_resolution(table, bench_file, sequence_file)
 
 
 @limits_group.command("show")
 @click.argument("file", type=click.Path(path_type=Path))
 @click.option("--grade", default=None, help="Show this grade only.")
-def limits_show(file: Path, grade: str | None) -> None:
+@click.option("--history", is_flag=True, help="Show the table's change records instead (limits set, limits guard).")
+def limits_show(file: Path, grade: str | None, history: bool) -> None:
     """A limit table in readable units, per grade and region."""
     from station.review.limit_tools import show_tables
 
     table = _table(file)
+    if history:
+        from station.review.limit_history import history_table
+
+        _console().print(history_table(table.changes, f"{file}: changes"))
+        return
     try:
         tables = show_tables(table, grade)
     except KeyError as exc:
@@ -213,8 +249,15 @@ def limits_diff(old: Path, new: Path) -> None:
     """What changed from OLD to NEW: limits added, removed, loosened, tightened; bins; regions."""
     from station.review.limit_tools import diff_table, diff_tables
 
-    changes = diff_tables(_table(old), _table(new))
+    old_table, new_table = _table(old), _table(new)
+    changes = diff_tables(old_table, new_table)
     console = _console()
+    records = new_table.changes[len(old_table.changes):] if new_table.changes[:len(old_table.changes)] == \
+        old_table.changes else new_table.changes
+    if records:
+        from station.review.limit_history import history_table
+
+        console.print(history_table(records, f"change records in {new} not in {old}"))
     if not changes:
         console.print("no changes")
         return

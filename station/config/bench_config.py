@@ -18,7 +18,7 @@ from drivers.registry import DRIVERS, known_drivers
 from drivers.supply import INSTRUMENT_MAX_A as SUPPLY_MAX_A
 from drivers.supply import INSTRUMENT_MAX_V as SUPPLY_MAX_V
 from drivers.supply import INSTRUMENT_MIN_A as SUPPLY_MIN_A
-from station.config.fields import quantity
+from station.config.fields import plain_number, quantity
 from station.config.files import (
     ConfigError,
     YamlDocument,
@@ -80,12 +80,23 @@ class InstrumentsSection(_Strict):
     handler: InstrumentEntry | None = None
 
 
+class ResolutionSection(_Strict):
+    """What the fixture can resolve (station/config/resolution.py)."""
+
+    # RMS of one DMM reading at the loop node, at `nplc`
+    dmm_noise: Annotated[float, quantity("V", ge=0, le=1.0, why="a DMM's reading noise")]
+    nplc: Annotated[float, plain_number(gt=0, le=100, why="the DMM's integration range")] = 1.0
+    # The fixture's own CMRR, where it has one.
+    cmrr_limit: Annotated[float, quantity("dB", gt=0, le=300, why="a fixture's own CMRR")] | None = None
+
+
 class FixtureSection(_Strict):
     rf: LoopOhms
     rs: LoopOhms
     sites: int = Field(strict=True)
     line_frequency: Annotated[float, quantity("Hz", gt=0, le=1000)]
     dmm_per_site: bool | None = Field(None, strict=True)
+    resolution: ResolutionSection | None = None
 
 
 class SafetySection(_Strict):
@@ -111,6 +122,18 @@ class InstrumentConfig:
 
 
 @dataclass(frozen=True)
+class FixtureResolution:
+    dmm_noise_v: float          # RMS node volts of one reading at `nplc`
+    nplc: float
+    cmrr_limit_db: float | None
+    line: int | None            # line of fixture.resolution in the bench config
+
+    def reading_noise_rti(self, loop_gain: float, nplc: float) -> float:
+        """Input-referred RMS of one reading at `nplc` (white noise: 1/sqrt(integration time))."""
+        return self.dmm_noise_v * (self.nplc / nplc) ** 0.5 / loop_gain
+
+
+@dataclass(frozen=True)
 class BenchConfig:
     station: str
     visa_library: str
@@ -123,6 +146,7 @@ class BenchConfig:
     max_rail_v: float
     compliance_a: float
     source: Path | None = None
+    resolution: FixtureResolution | None = None   # None: the bench config states none
 
     @property
     def loop_gain(self) -> float:
@@ -171,11 +195,14 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
     if model.instruments.handler is not None:
         add("handler", model.instruments.handler)
     station = model.station or (source.stem if source is not None else "bench")
+    res = fixture.resolution
+    resolution = (FixtureResolution(res.dmm_noise, res.nplc, res.cmrr_limit, doc.line_of(["fixture", "resolution"]))
+                  if res is not None else None)
     return BenchConfig(station=station, visa_library=model.visa_library, instruments=instruments,
                        rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
-                       source=source)
+                       source=source, resolution=resolution)
 
 
 def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:

@@ -40,6 +40,10 @@ TESTER_FAULT_NAME = "Tester fault"
 
 @dataclass(frozen=True)
 class Limit:
+    """`low`/`high` are the acceptance limits the station judges with. A guard-banded table
+    also keeps the specification limits they were moved in from (`spec_low`/`spec_high`,
+    None where the acceptance limit is the spec limit) and the guard (`guard_u`, `guard_k`)."""
+
     param: str
     region: str | None
     low: float | None
@@ -47,6 +51,16 @@ class Limit:
     units: str
     soft_bin: int
     bin_name: str
+    spec_low: float | None = None
+    spec_high: float | None = None
+    guard_u: float | None = None
+    guard_k: float | None = None
+
+    @property
+    def spec(self) -> tuple[float | None, float | None]:
+        """The specification limits (the acceptance limits where no guard band was applied)."""
+        return (self.spec_low if self.spec_low is not None else self.low,
+                self.spec_high if self.spec_high is not None else self.high)
 
 
 @dataclass(frozen=True)
@@ -86,6 +100,7 @@ class LimitTable:
     tester_fault_hard_bin: int
     tester_fault_soft_bin: int
     source: str
+    changes: tuple[dict[str, Any], ...] = ()   # change records, oldest first (station limits set)
 
     @property
     def loosest(self) -> Grade:
@@ -145,13 +160,34 @@ class _TesterFaultModel(_Model):
     soft_bin: BinNumber
 
 
+class _GuardModel(_Model):
+    rule: Literal["guarded", "simple"]
+    k: float = Field(ge=0, le=10)
+    u: Value                     # standard uncertainty, in the parameter's units (V/V for dB figures)
+    study: StrictStr = ""
+
+
 class _LimitModel(_Model):
     param: StrictStr
     region: StrictStr | None = None
     low: Value | None = None
     high: Value | None = None
+    spec_low: Value | None = None     # guard-banded table: the specification limits
+    spec_high: Value | None = None
+    guard: _GuardModel | None = None
     soft_bin: BinNumber
     bin: StrictStr
+
+
+class _ChangeModel(_Model):
+    """One change record of `station limits set` / `limits guard` (what, old, new, who, when, why)."""
+
+    what: StrictStr
+    old: Any = None
+    new: Any = None
+    who: StrictStr
+    when: StrictStr
+    why: StrictStr
 
 
 class _GradeModel(_Model):
@@ -171,6 +207,7 @@ class _TableModel(_Model):
     tester_fault: _TesterFaultModel
     fail_hard_bin: BinNumber
     grades: list[_GradeModel]
+    changes: list[_ChangeModel] = []
 
 
 # ---- cross-checks ---------------------------------------------------------------------------
@@ -187,7 +224,8 @@ def _build(doc: YamlDocument) -> LimitTable:
         product=model.product, note=model.note, regions=regions, grades=grades,
         hard_bins=hard_bins, soft_bins=soft_bins, fail_hard_bin=model.fail_hard_bin,
         contact=contact, tester_fault_hard_bin=model.tester_fault.hard_bin,
-        tester_fault_soft_bin=model.tester_fault.soft_bin, source=doc.file)
+        tester_fault_soft_bin=model.tester_fault.soft_bin, source=doc.file,
+        changes=tuple(c.model_dump() for c in model.changes))
 
 
 def _regions(doc: YamlDocument, model: _TableModel) -> tuple[Region, ...]:
@@ -331,7 +369,7 @@ def _limit(doc: YamlDocument, path: list[str | int], entry: _LimitModel,
         raise doc.error([*path, "param"], f"{param!r} {why}", f"limitable parameters: {known}")
     info = PARAMETERS[param]
     _check_region(doc, path, param, info.region_kind, entry.region, kinds)
-    bounds: dict[str, float | None] = {"low": None, "high": None}
+    bounds: dict[str, float | None] = {"low": None, "high": None, "spec_low": None, "spec_high": None}
     for key in bounds:
         raw = getattr(entry, key)
         if raw is None:
@@ -348,7 +386,29 @@ def _limit(doc: YamlDocument, path: list[str | int], entry: _LimitModel,
     if low is not None and high is not None and low > high:
         raise doc.error([*path, "low"], f"{param} low limit {_show(low, info.units)} is above "
                         f"the high limit {_show(high, info.units)}", "swap low and high")
-    return Limit(param, entry.region, low, high, info.units, entry.soft_bin, entry.bin)
+    spec_low, spec_high = bounds["spec_low"], bounds["spec_high"]
+    for key, spec, acceptance in (("spec_low", spec_low, low), ("spec_high", spec_high, high)):
+        if spec is None:
+            continue
+        if acceptance is None:
+            raise doc.error([*path, key], f"{param} has {key} but no {key[5:]} acceptance limit",
+                            f"add {key[5:]}: (the acceptance limit) or remove {key}:")
+        looser = acceptance < spec if key == "spec_low" else acceptance > spec
+        if looser:
+            raise doc.error([*path, key[5:]], f"{param} acceptance limit {_show(acceptance, info.units)} lies "
+                            f"outside its specification limit {_show(spec, info.units)}",
+                            "a guard band moves the acceptance limit inside the spec limit")
+    guard_u = None
+    if entry.guard is not None:
+        units = "V/V" if info.units == "dB" else info.units
+        try:
+            guard_u = parse_quantity(entry.guard.u, units)
+        except ValueError as exc:
+            raise doc.error([*path, "guard", "u"], f"guard uncertainty: {exc}") from None
+        if guard_u < 0:
+            raise doc.error([*path, "guard", "u"], "a standard uncertainty cannot be negative")
+    return Limit(param, entry.region, low, high, info.units, entry.soft_bin, entry.bin, spec_low, spec_high,
+                 guard_u, entry.guard.k if entry.guard else None)
 
 
 def _check_region(doc: YamlDocument, path: list[str | int], param: str, kind: str | None,

@@ -76,6 +76,11 @@ def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> Scre
     check_bench_safety(sequence, bench.max_rail_v, bench.compliance_a)
     if bench.has_handler:
         check_bins_fit_handler(table, Path(limits_path))
+    from station.config.resolution import resolution_problems
+
+    unresolved = resolution_problems(bench, sequence, table)
+    if unresolved:                # a limit the fixture cannot resolve would sort on noise
+        raise unresolved[0]
     context = KindContext(sequence.span_v, table.regions)
     for step in sequence.tests:
         kind_of(step).check(step, sequence, context)

@@ -15,6 +15,9 @@ Choices the datalog leaves open, made here once:
 - Full hashes, file sources and every instrument's *IDN? string go into DTR records right
   after the MIR, where a MIR field has no room for them.
 - TSR statistics (min, max, sums) cover finite results only; TEST_TIM is not known.
+- LO_LIMIT/HI_LIMIT are the acceptance limits the station judged with. Where the limit table
+  of the lot (its copy limits.yaml) is guard-banded, the specification limits go into the
+  PTR's LO_SPEC/HI_SPEC (OPT_FLAG bits 2/3 cleared); elsewhere bits 2/3 say "no spec limit".
 """
 
 from __future__ import annotations
@@ -223,7 +226,26 @@ class _Limits:
     hi: float | None
 
 
-def _ptr(row: dict[str, str], first: dict[int, _Limits], where: str) -> Ptr:
+SpecLimits = dict[tuple[str, str, str], tuple[float | None, float | None]]
+
+
+def _spec_limits(log: Datalog) -> SpecLimits:
+    """(grade, param, region) -> spec limits of a guard-banded table; empty when the lot's
+    table has none (or cannot be read: the export then says nothing of spec limits)."""
+    from station.config.files import ConfigError
+    from station.config.limit_tables import load_limit_table
+
+    path = log.folder / str((log.lot.get("limits") or {}).get("file", "limits.yaml"))
+    try:
+        table = load_limit_table(path)
+    except (ConfigError, OSError):
+        return {}
+    return {(grade.name, lim.param, lim.region or ""): (lim.spec_low, lim.spec_high)
+            for grade in table.grades for lim in grade.limits
+            if lim.spec_low is not None or lim.spec_high is not None}
+
+
+def _ptr(row: dict[str, str], first: dict[int, _Limits], where: str, specs: SpecLimits | None = None) -> Ptr:
     number = _int(row, "TEST_NUM", where)
     try:
         result = float(row["RESULT"])
@@ -245,13 +267,22 @@ def _ptr(row: dict[str, str], first: dict[int, _Limits], where: str) -> Ptr:
         first[number] = _Limits(lo, hi)
     units = row["UNITS"].strip()
     scale = UNIT_SCALE.get(units, 0)
+    spec = (specs or {}).get((row["GRADE"].strip(), row["PARAM"].strip(), row["REGION"].strip()))
+    spec_fields: dict[str, Any] = {}
+    if spec is not None:
+        opt &= ~OPT_FLAG_NO_SPEC_LIMITS
+        opt |= 0x04 if spec[0] is None else 0
+        opt |= 0x08 if spec[1] is None else 0
+        spec_fields = {"C_RESFMT": "", "C_LLMFMT": "", "C_HLMFMT": "",
+                       "LO_SPEC": 0.0 if spec[0] is None else spec[0],
+                       "HI_SPEC": 0.0 if spec[1] is None else spec[1]}
     return Ptr(
         TEST_NUM=number, HEAD_NUM=_int(row, "HEAD_NUM", where),
         SITE_NUM=_int(row, "SITE_NUM", where), TEST_FLG=test_flg, PARM_FLG=parm_flg,
         RESULT=result, TEST_TXT=row["TEST_TXT"], ALARM_ID="", OPT_FLAG=opt,
         RES_SCAL=scale, LLM_SCAL=scale, HLM_SCAL=scale,
         LO_LIMIT=0.0 if lo_out is None else lo_out, HI_LIMIT=0.0 if hi_out is None else hi_out,
-        UNITS=units,
+        UNITS=units, **spec_fields,
     )
 
 
@@ -266,12 +297,13 @@ def _part_text(part: dict[str, str]) -> str:
 
 def _part_records(log: Datalog) -> Iterator[bytes]:
     first: dict[int, _Limits] = {}
+    specs = _spec_limits(log)
     for index, (part, rows) in enumerate(zip(log.parts, match_results(log), strict=True)):
         where = f"{PARTS_CSV}:{index + 2}"
         head, site = _int(part, "HEAD_NUM", where), _int(part, "SITE_NUM", where)
         yield Pir(HEAD_NUM=head, SITE_NUM=site).encode()
         for row in rows:
-            yield _ptr(row, first, f"results.csv part {part['PART_ID']!r}").encode()
+            yield _ptr(row, first, f"results.csv part {part['PART_ID']!r}", specs).encode()
         soft = part["SOFT_BIN"].strip()
         test_t = _number(part["TEST_T"])
         yield Prr(

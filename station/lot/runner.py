@@ -48,6 +48,12 @@ class LotSettings:
     fault_pause_s: float = 0.5      # wait before recovering, times the attempt number
     extra_header: dict = field(default_factory=dict)   # e.g. the dry run's simulated lot
 
+    @property
+    def is_study(self) -> bool:
+        """A repeatability study (lot.json `study`): the same parts come again and are tested
+        every time, instead of being sorted to the bin they got before."""
+        return "study" in self.extra_header
+
 
 @dataclass
 class LotTally:
@@ -232,8 +238,9 @@ class LotRunner:
     def _index(self, ids: list[str | None]) -> None:
         # A part already finished in an earlier session (a resumed lot) is not tested again:
         # it is sorted to the bin it got then.
-        again = {site: pid for site, pid in enumerate(ids, start=1) if pid in self._final_bins}
-        todo = [None if pid in self._final_bins else pid for pid in ids]
+        done = {} if self.settings.is_study else self._final_bins
+        again = {site: pid for site, pid in enumerate(ids, start=1) if pid in done}
+        todo = [None if pid in done else pid for pid in ids]
         pending = list(todo)
         finished: list[tuple[PartOutcome, int]] = []
         self._mark(todo)

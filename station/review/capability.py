@@ -4,6 +4,14 @@ Non-finite results (over-range: the DMM overloaded, or a slope over such a point
 counted but left out of mean, sigma, min, max and the percentiles: they have no value to
 average. Sigma is the sample standard deviation (n - 1).
 Cpk = min(USL - mu, mu - LSL) / (3 sigma); with one limit only, that side alone.
+
+Rejection figures (CMRR, PSRR) are judged on their signed slope in V/V, not on dB: dB is
+-20 log10 |slope| of a slope whose distribution is centred near 0, so the dB values are badly
+skewed (a slope near zero reads 150 dB) and a normal Cpk of them means little. A limit
+"L dB" is the window |slope| <= 10^(-L/20), so Cpk = min(s - mu, mu + s) / (3 sigma) with
+s = 10^(-L/20) and mu, sigma of the slope rows (`cmrr_slope`, `psrr_slope`) of the same
+region. AOL keeps its dB (its slope is far from zero and of one sign). The repeatability
+study uses the same convention (station/qualify/study.py).
 """
 
 from __future__ import annotations
@@ -52,12 +60,35 @@ def cpk(mean: np.ndarray, sigma: np.ndarray, lsl: np.ndarray, usl: np.ndarray) -
         return np.fmin(upper, lower)  # fmin ignores the nan of a missing side
 
 
+# Rejection figures whose Cpk is taken on their slope (V/V).
+SLOPE_OF_REJECTION = {"cmrr": "cmrr_slope", "psrr": "psrr_slope"}
+CPK_COLUMNS = ["param", "region", "grade", "lsl", "usl", "mean", "sigma", "cpk", "units", "basis"]
+
+
+def db_limit_to_slope(db: np.ndarray) -> np.ndarray:
+    """|slope| of a rejection limit in dB: 10^(-dB/20) (nan stays nan)."""
+    return np.power(10.0, -np.asarray(db, float) / 20.0)
+
+
 def capability(stats_frame: pd.DataFrame, limits: pd.DataFrame) -> pd.DataFrame:
-    """Cpk per (param, region, grade): stats joined with the limits frame (GRADE, PARAM, REGION, LSL, USL)."""
+    """Cpk per (param, region, grade): stats joined with the limits frame (GRADE, PARAM, REGION,
+    LSL, USL). CMRR and PSRR rows are on their slope in V/V (`units` V/V, `basis` "slope");
+    their lsl/usl are then -s and +s, s = 10^(-LSL/20)."""
     if limits.empty or stats_frame.empty:
-        return pd.DataFrame(columns=["param", "region", "grade", "lsl", "usl", "mean", "sigma", "cpk"])
+        return pd.DataFrame(columns=CPK_COLUMNS)
     joined = stats_frame.merge(limits.rename(columns={"PARAM": "param", "REGION": "region", "GRADE": "grade",
                                                       "LSL": "lsl", "USL": "usl"}),
                                on=["param", "region"], how="inner")
-    joined["cpk"] = cpk(joined["mean"], joined["sigma"], joined["lsl"], joined["usl"])
-    return joined[["param", "region", "grade", "lsl", "usl", "mean", "sigma", "cpk"]]
+    joined["basis"] = ""
+    slopes = stats_frame.set_index(["param", "region"])
+    for index, row in joined.iterrows():
+        slope_param = SLOPE_OF_REJECTION.get(str(row["param"]))
+        if slope_param is None or (slope_param, row["region"]) not in slopes.index or np.isnan(row["lsl"]):
+            continue
+        stats = slopes.loc[(slope_param, row["region"])]
+        edge = float(db_limit_to_slope(np.array([row["lsl"]]))[0])
+        joined.loc[index, ["lsl", "usl", "mean", "sigma", "units", "basis"]] = [
+            -edge, edge, stats["mean"], stats["sigma"], "V/V", "slope"]
+    joined["cpk"] = cpk(joined["mean"].astype(float), joined["sigma"].astype(float),
+                        joined["lsl"].astype(float), joined["usl"].astype(float))
+    return joined[CPK_COLUMNS]

@@ -125,8 +125,7 @@ def cpk_table(summary: Summary) -> Table:
     table = _table("Capability per grade: Cpk = min(USL - mu, mu - LSL) / (3 sigma)",
                    "parameter", "region", "unit", *columns, right_from=3)
     for (param, region), group in summary.cpk.groupby(["param", "region"], sort=False):
-        units = summary.stats.loc[(summary.stats["param"] == param) & (summary.stats["region"] == region),
-                                  "units"].iloc[0]
+        units = str(group["units"].iloc[0])   # V/V where a rejection figure is judged on its slope
         cells = []
         for grade in grades:
             row = group[group["grade"] == grade]
@@ -138,5 +137,6 @@ def cpk_table(summary: Summary) -> Table:
             style = FLAG if not math.isnan(value) and value < 1.33 else ""
             text = _num(value, 3)
             cells += [fmt(r["lsl"], units), fmt(r["usl"], units), f"[{style}]{text}[/]" if style and text else text]
-        table.add_row(str(param), str(region), display_unit(units)[1], *cells)
+        slope = " (slope)" if (group["basis"] == "slope").any() else ""
+        table.add_row(str(param) + slope, str(region), display_unit(units)[1], *cells)
     return table

@@ -50,12 +50,20 @@ def show_tables(table: LimitTable, grade: str | None = None) -> list[Table]:
     for g in chosen:
         t = Table(title=f"Grade {g.name}: hard bin {g.hard_bin}, soft bin {g.soft_bin}", header_style=HEAD,
                   title_justify="left")
-        for column, justify in (("parameter", "left"), ("region", "left"), ("low", "right"), ("high", "right"),
-                                ("fail soft bin", "right"), ("bin name", "left")):
+        guarded = any(lim.spec_low is not None or lim.spec_high is not None for lim in g.limits)
+        columns = [("parameter", "left"), ("region", "left"), ("low", "right"), ("high", "right")]
+        if guarded:   # a guard-banded table: low/high are the acceptance limits
+            columns += [("spec low", "right"), ("spec high", "right"), ("guard", "left")]
+        for column, justify in (*columns, ("fail soft bin", "right"), ("bin name", "left")):
             t.add_column(column, justify=justify)  # type: ignore[arg-type]
         for lim in g.limits:
-            t.add_row(lim.param, lim.region or "", _limit_cell(lim.low, lim.units), _limit_cell(lim.high, lim.units),
-                      str(lim.soft_bin), lim.bin_name)
+            cells = [lim.param, lim.region or "", _limit_cell(lim.low, lim.units), _limit_cell(lim.high, lim.units)]
+            if guarded:
+                spec_low, spec_high = lim.spec
+                u_units = "V/V" if lim.units == "dB" else lim.units   # dB figures are guarded on their slope
+                guard = "" if lim.guard_k is None else f"k {lim.guard_k:g}, u {fmt(lim.guard_u, u_units, 3, True)}"
+                cells += [_limit_cell(spec_low, lim.units), _limit_cell(spec_high, lim.units), guard]
+            t.add_row(*cells, str(lim.soft_bin), lim.bin_name)
         out.append(t)
     bins = Table(title="Bins", header_style=HEAD, title_justify="left")
     for column in ("kind", "bin", "name", "pass"):

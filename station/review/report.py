@@ -181,9 +181,7 @@ def _stats_table(summary: Summary) -> str:
 
 def _cpk_table(summary: Summary) -> str:
     frame = summary.cpk.copy()
-    units = dict(zip(zip(summary.stats["param"], summary.stats["region"], strict=True), summary.stats["units"],
-                     strict=True))
-    unit = [units.get((p, r), "") for p, r in zip(frame["param"], frame["region"], strict=True)]
+    unit = [str(u) for u in frame.pop("units")]   # V/V where a rejection figure is judged on its slope
     for column in ("lsl", "usl", "mean", "sigma"):
         frame[column] = [fmt(v, u) for v, u in zip(frame[column], unit, strict=True)]
     frame.insert(3, "unit", [display_unit(u)[1] for u in unit])

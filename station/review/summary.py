@@ -64,9 +64,10 @@ def summarise(logs: Datalogs, by: str | None = None) -> Summary:
     if over:
         summary.notes.append(f"{over} over-range (non-finite) results are counted but left out "
                              "of mean, sigma, percentiles and Cpk")
-    if not summary.cpk.empty and (summary.cpk["param"].isin(["cmrr", "psrr", "aol"])).any():
-        summary.notes.append("Cpk of dB figures takes their spread in dB as normal; CMRR and PSRR in dB "
-                             "are skewed (their V/V slopes are the Gaussian ones), so read those Cpk as rough")
+    if not summary.cpk.empty and (summary.cpk["basis"] == "slope").any():
+        summary.notes.append("Cpk of CMRR and PSRR is on their slope in V/V: a limit 'L dB' is the window "
+                             "|slope| <= 10^(-L/20), and mean and sigma are the slope's (dB values are skewed); "
+                             "AOL's Cpk is on dB")
     return summary
 
 

@@ -121,17 +121,23 @@ def test_parameter_stats_match_numpy_and_exclude_over_range(folder: Path, tmp_pa
 def test_cpk_per_grade_by_the_published_formula(folder: Path, summary) -> None:
     table = load_limit_table(folder / "limits.yaml")
     reference = pd.read_csv(folder / "results.csv")
+    slope_of = {"cmrr": "cmrr_slope", "psrr": "psrr_slope"}
     for grade in table.grades:
         for lim in grade.limits:
-            values = reference.loc[(reference["PARAM"] == lim.param) &
+            param, low, high = lim.param, lim.low, lim.high
+            if param in slope_of:
+                # A rejection limit "L dB" is |slope| <= 10^(-L/20) on the signed slope (arithmetic).
+                param, high = slope_of[param], 10 ** (-lim.low / 20)
+                low = -high
+            values = reference.loc[(reference["PARAM"] == param) &
                                    (reference["REGION"].fillna("") == (lim.region or "")), "RESULT"].to_numpy()
             values = values[np.isfinite(values)]
             mu, sigma = values.mean(), values.std(ddof=1)
             # Cpk = min(USL - mu, mu - LSL) / (3 sigma), one side if one limit: the textbook
             # process-capability index (common practice, no source; docs/methods.md).
             # numpy gives mu and sigma.
-            sides = [(lim.high - mu) / (3 * sigma)] if lim.high is not None else []
-            sides += [(mu - lim.low) / (3 * sigma)] if lim.low is not None else []
+            sides = [(high - mu) / (3 * sigma)] if high is not None else []
+            sides += [(mu - low) / (3 * sigma)] if low is not None else []
             row = summary.cpk[(summary.cpk["param"] == lim.param) & (summary.cpk["region"] == (lim.region or "")) &
                               (summary.cpk["grade"] == grade.name)]
             assert len(row) == 1

@@ -444,6 +444,9 @@ def _register_datalog_tools() -> None:
 
     for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
         main.add_command(command)
+    from station.cli import screen_commands
+
+    screen_commands.register(main, limits_group)
 
 
 _register_datalog_tools()

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, StrictBool, StrictInt, StrictStr
 
@@ -24,6 +24,9 @@ from station.config.parameters import FULL_RANGE, LIMITABLE, PARAMETERS
 from station.config.quantities import parse_quantity
 from station.config.rail_points import parse_rail_point
 from station.config.regions import Region
+
+if TYPE_CHECKING:
+    from station.screen.pat_table import PatLayer
 
 # Regions are checked for tiling at the nominal demo span, and their shared boundaries at a
 # second span too, so a table that tiles only at 10 V is refused.
@@ -86,6 +89,7 @@ class LimitTable:
     tester_fault_hard_bin: int
     tester_fault_soft_bin: int
     source: str
+    pat: PatLayer | None = None   # outlier screening layer (station/screen/pat_table.py)
 
     @property
     def loosest(self) -> Grade:
@@ -171,6 +175,7 @@ class _TableModel(_Model):
     tester_fault: _TesterFaultModel
     fail_hard_bin: BinNumber
     grades: list[_GradeModel]
+    pat: Any = None  # checked by station/screen/pat_table.py
 
 
 # ---- cross-checks ---------------------------------------------------------------------------
@@ -183,11 +188,16 @@ def _build(doc: YamlDocument) -> LimitTable:
     contact = _contact(doc, model)
     grades = _grades(doc, model, regions)
     soft_bins = _soft_bins(doc, model, grades)
+    from station.screen.pat_table import read_pat_layer  # the layer lives with the screens
+
+    pat = read_pat_layer(doc, {r.name: r.kind for r in regions}, hard_bins, soft_bins)
+    if pat is not None:
+        soft_bins = dict(sorted({**soft_bins, **pat.soft_bins}.items()))
     return LimitTable(
         product=model.product, note=model.note, regions=regions, grades=grades,
         hard_bins=hard_bins, soft_bins=soft_bins, fail_hard_bin=model.fail_hard_bin,
         contact=contact, tester_fault_hard_bin=model.tester_fault.hard_bin,
-        tester_fault_soft_bin=model.tester_fault.soft_bin, source=doc.file)
+        tester_fault_soft_bin=model.tester_fault.soft_bin, source=doc.file, pat=pat)
 
 
 def _regions(doc: YamlDocument, model: _TableModel) -> tuple[Region, ...]:

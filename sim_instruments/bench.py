@@ -14,6 +14,7 @@ from pathlib import Path
 from sim_instruments.clock import ModelClock
 from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
+from sim_instruments.fixture_faults import FixtureFault
 from sim_instruments.force import ForceSource
 from sim_instruments.handler import Handler
 from sim_instruments.instrument import Instrument
@@ -50,6 +51,8 @@ class SimSettings:
     # For resuming a lot: the handler starts after the first `skip_parts` parts of the lot,
     # as a real handler would after those were sorted in an earlier session.
     skip_parts: int = 0
+    # A fixture that breaks mid-lot (sim_instruments/fixture_faults.py).
+    fixture_faults: tuple[FixtureFault, ...] = ()
 
 
 class SimBench:
@@ -91,7 +94,7 @@ class SimBench:
             self.instruments[role] = Dmm(m, k, s.seed, s.line_hz, **self._common(role, 2 + k))
         self.instruments["switch"] = FixtureSwitch(m, **self._common("switch", 10))
         self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
-                                              **self._common("handler", 11))
+                                              s.fixture_faults, s.seed, **self._common("handler", 11))
 
     # --- life cycle ----------------------------------------------------------------------
     def start(self) -> SimBench:

@@ -107,6 +107,7 @@ def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] 
 def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None,
                   stops: StopRequests) -> int:
     from station.cli.lot_console import LotProgress, bin_summary, lot_line
+    from station.cli.screen_commands import ask_pause
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
     from station.lot.runner import LotRunner, LotSettings
@@ -128,7 +129,7 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
             live.append(progress)
             runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
-                               way_out=stops.way_out)
+                               way_out=stops.way_out, decide=lambda alarm: ask_pause(alarm, live))
             tally = runner.run()
         with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:
@@ -263,12 +264,16 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
               help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
+@click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
+              help="Break the simulated fixture mid-lot: contact:2@40 (site 2 loses contact from part 40), "
+                   "leakage:3@100:5uA (site 3 leaks 5 uA more per part from part 100). Repeatable.")
 @_RESUME
 @_MAX_FAULTS
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
-            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
+            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int,
+            fixture_faults: tuple[str, ...]) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -277,7 +282,10 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
     operator = _operator(operator)
     if lot_id is not None and out is None and resume_dir is None:
         _default_out(lot_id)          # refused before anything starts
-    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
+    from station.cli.screen_commands import fixture_fault_options
+
+    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed,
+                           fixture_faults=fixture_fault_options(fixture_faults))
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
     resume = None
     if resume_dir is not None:
@@ -290,6 +298,8 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
     lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
     out = out or _default_out(lot_id)
     extra = {"dry_run": {key: getattr(settings, key) for key in _SIM_KEYS}}
+    if settings.fixture_faults:
+        extra["dry_run"]["fixture_faults"] = [f.text() for f in settings.fixture_faults]
     with SimBench(settings) as sim, tempfile.TemporaryDirectory() as temp:
         sim.start()
         config = yaml.safe_load(sim.bench_config_text())

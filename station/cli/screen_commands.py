@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import click
 from rich.table import Table
@@ -54,6 +55,35 @@ def limits_pat(limits_file: Path, datalogs: tuple[Path, ...], k: float, min_part
     except OSError as exc:
         raise BadInput(f"cannot write {out_file}: {exc}") from None
     console.print(f"table with PAT layer written to {out_file}")
+
+
+def fixture_fault_options(texts: tuple[str, ...]) -> tuple:
+    """--fixture-fault texts as the simulator's fixture faults; a bad one is refused (exit 2)."""
+    from sim_instruments.fixture_faults import parse_fixture_fault
+    from station.errors import Refused
+
+    faults = []
+    for text in texts:
+        try:
+            faults.append(parse_fixture_fault(text))
+        except ValueError as exc:
+            raise Refused(f"--fixture-fault {text}: {exc}") from None
+    return tuple(faults)
+
+
+def ask_pause(alarm: Any, live: list) -> str:
+    """The operator's answer at a lot-control pause (the bench is in its safe state meanwhile)."""
+    choices = ["continue", "skip", "stop"] if alarm.site is not None else ["continue", "stop"]
+    site = f" (skip: site {alarm.site} is not tested any more)" if alarm.site is not None else ""
+    text = f"LOT PAUSED ({alarm.rule}): {alarm.message}\nbench in safe state; {', '.join(choices)}{site}?"
+
+    def prompt() -> str:
+        try:
+            return str(click.prompt(text, type=click.Choice(choices), default="stop"))
+        except click.Abort:          # input closed: the safe answer
+            return "stop"
+
+    return str(live[0].ask(prompt)) if live else prompt()
 
 
 def register(main: click.Group, limits_group: click.Group) -> None:

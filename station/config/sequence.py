@@ -22,6 +22,7 @@ from station.config.files import ConfigError, YamlDocument, load_yaml_file, pars
 from station.config.quantities import format_quantity, parse_quantity
 from station.config.rail_points import RailPoint, parse_rail_point, rails_for
 from station.kinds.registry import KINDS, kind_of
+from station.screen.lot_rules import Rule, read_lot_control
 
 TEST_KINDS = tuple(KINDS)
 
@@ -87,12 +88,13 @@ class Sequence:
     autozero: bool
     tests: tuple[TestStep, ...]
     source: str
+    lot_control: tuple[Rule, ...] = ()   # station/screen/lot_rules.py
 
     def steps(self, kind: str) -> tuple[TestStep, ...]:
         return tuple(t for t in self.tests if t.kind == kind)
 
 
-_TOP_KEYS = {"sequence", "product", "note", "supply", "dmm", "settle", "stop_on_fail", "tests"}
+_TOP_KEYS = {"sequence", "product", "note", "supply", "dmm", "settle", "stop_on_fail", "tests", "lot_control"}
 _TEST_KEYS = {
     "common": {"kind", "name", "nplc", "average", "settle", "stop_on_fail"},
     "contact": {"retest"},
@@ -270,7 +272,8 @@ def _build(doc: YamlDocument) -> Sequence:
                         "it finds opens and shorts before the part is measured")
     return Sequence(name=read.text(top["sequence"], ["sequence"]), product=read.text(top["product"], ["product"]),
                     span_v=span, compliance_a=compliance, dmm_range_v=dmm_range, autozero=autozero,
-                    tests=tuple(steps), source=doc.file)
+                    tests=tuple(steps), source=doc.file,
+                    lot_control=read_lot_control(doc, top.get("lot_control")))
 
 
 def _nplc(read: _Reader, value: Any, path: list) -> float:

@@ -25,10 +25,13 @@ from station.config.plan import ScreenPlan
 from station.datalog.resume import ResumeState, part_fields
 from station.datalog.writer import DatalogWriter, PartRecord
 from station.errors import EXIT_SOFTWARE, EXIT_STOPPED, Stopped  # exit codes of a stop
+from station.judge.grading import tester_fault_verdict
 from station.lot.bench import Bench
 from station.lot.index_screen import IndexScreen, PartOutcome
 from station.lot.site_readings import SiteReader
 from station.lot.stop_signals import LotInterrupted, signals_deferred, signals_held
+from station.screen.lot_guard import LotGuard, no_operator
+from station.screen.lot_rules import Alarm
 
 __all__ = ["LotInterrupted", "LotRunner", "LotSettings", "LotStopped", "LotTally"]
 
@@ -92,7 +95,8 @@ class LotRunner:
                  on_part: Callable[[PartRecord, LotTally], None] | None = None,
                  sleep: Callable[[float], None] = time.sleep, resume: ResumeState | None = None,
                  tell: Callable[[str], None] = lambda text: None,
-                 way_out: Callable[[], None] = lambda: None) -> None:
+                 way_out: Callable[[], None] = lambda: None,
+                 decide: Callable[[Alarm], str] = no_operator) -> None:
         self.plan = plan
         self.way_out = way_out     # told first thing on the way out: later signals stop nothing
         self.bench = bench
@@ -113,6 +117,11 @@ class LotRunner:
         self._final_bins: dict[str, int] = {}  # finished parts -> the hard bin they were sorted to
         self._consecutive_faults = 0
         self._earlier_retries: dict[str, int] = {}
+        # Lot control (station/screen): alarms on a bench problem, acted on between indexes.
+        self.guard = LotGuard(plan.sequence.lot_control, plan.bench.sites, write=self._write_header_fields,
+                              tell=tell, decide=decide, make_safe=self._make_safe,
+                              power_up=lambda: self._tolerant(self.screen.power_up),
+                              earlier=list(resume.header.get("alarms", [])) if resume is not None else None)
         if resume is not None:
             self._take_over(resume)
 
@@ -139,6 +148,7 @@ class LotRunner:
             "tests": [{"test_num": t.test_num, "test_txt": t.test_txt, "param": t.param,
                        "region": t.region or "", "units": t.units} for t in plan.tests],
             **self.settings.extra_header,
+            "alarms": [], "paused": False,
         }
 
     def run(self) -> LotTally:
@@ -158,6 +168,9 @@ class LotRunner:
                 if ids is None:
                     break
                 self._index(ids)
+                why = self.guard.after_index()
+                if why is not None:
+                    raise LotStopped(why)
         except LotInterrupted as exc:
             self._stop(str(exc) or "interrupted", EXIT_STOPPED)
         except KeyboardInterrupt:
@@ -181,6 +194,14 @@ class LotRunner:
     def _stop(self, why: str, code: int) -> None:
         self.tally.stopped_because = why
         self.tally.stop_code = code
+
+    def _write_header_fields(self, fields: dict) -> None:
+        self.writer.header.update(fields)
+        self.writer.write_header()
+
+    def _make_safe(self) -> list[str]:
+        # power_up afterwards sets every level again (its own cache reset), outputs last.
+        return self.bench.safe_state()
 
     def _finish_datalog(self) -> None:
         try:
@@ -233,7 +254,9 @@ class LotRunner:
         # A part already finished in an earlier session (a resumed lot) is not tested again:
         # it is sorted to the bin it got then.
         again = {site: pid for site, pid in enumerate(ids, start=1) if pid in self._final_bins}
-        todo = [None if pid in self._final_bins else pid for pid in ids]
+        skipped = {site: pid for site, pid in enumerate(ids, start=1)
+                   if pid and pid not in self._final_bins and site in self.guard.skipped}
+        todo = [None if pid in self._final_bins or site in skipped else pid for site, pid in enumerate(ids, start=1)]
         pending = list(todo)
         finished: list[tuple[PartOutcome, int]] = []
         self._mark(todo)
@@ -261,6 +284,11 @@ class LotRunner:
         for outcome, _ in finished:
             verdict = outcome.verdict
             self._tolerant(partial(self.bench.handler.assign_bin, outcome.site, verdict.hard_bin, verdict.reason))
+        for site, pid in skipped.items():   # untested: to the retest bin
+            verdict = tester_fault_verdict(self.plan.table, f"site {site} skipped by the operator (lot control)")
+            self._log(PartOutcome(site, pid, verdict, [], verdict.reason), 0)
+            self._final_bins[pid] = verdict.hard_bin
+            self._tolerant(partial(self.bench.handler.assign_bin, site, verdict.hard_bin, verdict.reason))
         for site, pid in again.items():
             self.tell(f"site {site}: {pid} was tested before this lot was resumed; sorted to bin "
                       f"{self._final_bins[pid]} as logged")
@@ -282,6 +310,7 @@ class LotRunner:
             self.writer.write_part(record, outcome.rows)
         self.tally.add(verdict.hard_bin, verdict.soft_bin, verdict.passed, verdict.grade, retest)
         self.tally.session_parts += 1
+        self.guard.observe(record.part_id, record.site, record.passed, record.soft_bin)
         self.on_part(record, self.tally)
 
     def _end_of_lot(self) -> dict:
@@ -302,6 +331,7 @@ class LotRunner:
                           for n, b in sorted(table.hard_bins.items())},
             "soft_bins": {str(n): {"name": b.name, "pass": b.passing, "count": tally.soft_bins.get(n, 0)}
                           for n, b in sorted(table.soft_bins.items())},
+            **self.guard.fields(),
         }
 
 

@@ -53,6 +53,7 @@ class SimSettings:
     skip_parts: int = 0
     # A fixture that breaks mid-lot (sim_instruments/fixture_faults.py).
     fixture_faults: tuple[FixtureFault, ...] = ()
+    pat_outlier_share: float = 0.0   # in-spec outliers in the population (population.py)
 
 
 class SimBench:
@@ -65,7 +66,8 @@ class SimBench:
             raise ValueError("line_hz must be 50 or 60")
         self.settings = settings
         self.clock = ModelClock(settings.speed)
-        self.parts = make_population(settings.seed, settings.parts, settings.defects)
+        self.parts = make_population(settings.seed, settings.parts, settings.defects,
+                                     settings.pat_outlier_share)
         self.model = BenchModel(FixtureSpec(settings.sites, settings.rf_ohm, settings.rs_ohm,
                                             settings.dmm_per_site), ideal=settings.ideal)
         self.command_log: list[CommandRecord] = []

@@ -441,14 +441,18 @@ def sim_group() -> None:
 @click.option("--single-dmm", is_flag=True, help="One DMM behind the scanner instead of one per site.")
 @click.option("--fault", "faults", multiple=True, metavar="ROLE:KIND=VALUE",
               help="Inject a fault, e.g. dmm1:latency=0.05, force:drop=100 (repeatable).")
+@click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
+              help="Break the fixture mid-lot: contact:2@40, leakage:3@100:5uA (repeatable).")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
-              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...]) -> None:
+              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
+              fixture_faults: tuple[str, ...]) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
     from sim_instruments.serve import parse_fault_option, serve_until_interrupted
+    from station.cli.screen_commands import fixture_fault_options
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
-                           dmm_per_site=not single_dmm)
+                           dmm_per_site=not single_dmm, fixture_faults=fixture_fault_options(fixture_faults))
     parsed = []
     for text in faults:
         try:

@@ -148,12 +148,12 @@ class LotPat:
                 out["rescreen"] = self.rescreen()
         return out
 
-    def restore(self, earlier: dict[str, Any], results_of: dict[str, list[Result]]) -> None:
+    def restore(self, earlier: dict[str, Any], results_of: dict[str, tuple[int, list[Result]]]) -> None:
         """A resumed lot: the outliers, baseline and limits of the earlier sessions."""
         self.outliers = list(earlier.get("outliers", []))
         dyn = earlier.get("dynamic") or {}
         ids = [str(p) for p in dyn.get("baseline_parts", [])]
-        self.baseline = [_BaselinePart(pid, 0, results_of.get(pid, [])) for pid in ids]
+        self.baseline = [_BaselinePart(pid, *results_of.get(pid, (0, []))) for pid in ids]
         self.from_part = str(dyn.get("from_part", ""))
         if dyn.get("limits") and self.preset is None:
             self.limits = [_limit_of(d, self.table) for d in dyn["limits"]]

@@ -31,18 +31,18 @@ def pat_outcome(pat: LotPat, outcome: PartOutcome) -> tuple[PartOutcome, bool]:
     return replace(outcome, verdict=after, rows=rows), ready
 
 
-def results_by_part(result_rows: list[list[str]], ids: set[str]) -> dict[str, list[Result]]:
-    """The logged figures of the parts `ids` (last test of each), from results.csv rows."""
-    out: dict[str, list[Result]] = {}
+def results_by_part(result_rows: list[list[str]], ids: set[str]) -> dict[str, tuple[int, list[Result]]]:
+    """Site and logged figures of the parts `ids` (last test of each), from results.csv rows."""
+    out: dict[str, tuple[int, list[Result]]] = {}
     last_block: dict[str, int] = {}
     for n, row in enumerate(result_rows):
         pid = row[_R["PART_ID"]]
         if pid not in ids:
             continue
-        if last_block.get(pid, n - 1) != n - 1:   # a later test of the part starts again
-            out[pid] = []
+        if last_block.get(pid, n - 1) != n - 1 or pid not in out:   # a later test starts again
+            out[pid] = (int(row[_R["SITE_NUM"]]), [])
         last_block[pid] = n
-        out.setdefault(pid, []).append(Result(row[_R["PARAM"]], row[_R["REGION"]] or None,
+        out[pid][1].append(Result(row[_R["PARAM"]], row[_R["REGION"]] or None,
                                               float(row[_R["RESULT"]]), int(row[_R["TEST_NUM"]])))
     return out
 

@@ -55,7 +55,7 @@ def test_baseline_limits_screen_later_parts_and_rescreen_the_baseline() -> None:
     assert record["rescreen"][0]["part"] == "P7"
     # a resumed lot takes the limits and baseline back from lot.json
     again = LotPat(table)
-    again.restore(record, {f"P{n}": _results(v) for n, v in enumerate(offsets)})
+    again.restore(record, {f"P{n}": (1, _results(v)) for n, v in enumerate(offsets)})
     assert again.limits == pat.limits and [r["part"] for r in again.rescreen()] == ["P7"]
 
 

@@ -87,3 +87,29 @@ def test_rebin_applies_a_tables_pat_layer_and_station_pat_lists_outliers(tmp_pat
     out = CliRunner().invoke(main, ["pat", str(folder), "--limits", str(limits_file)])
     assert out.exit_code == 0, out.output
     assert "dynamic PAT limits at 6 robust sigma" in out.output and "would change bin" in out.output
+
+
+def test_static_limits_of_the_table_screen_every_passing_part_in_the_lot() -> None:
+    layer = "  limits:\n    - {param: vos, low: -60 uV, high: 60 uV, soft_bin: 41, bin: PAT Offset}\n"
+    table = parse_limit_table(pat_table_text(layer))
+    pat = LotPat(table)
+    inside = grade_part(_results(59e-6), table)
+    assert pat.screen("P1", 1, inside, _results(59e-6))[0] is inside
+    after, _ = pat.screen("P2", 2, grade_part(_results(-61e-6), table), _results(-61e-6))
+    assert (after.hard_bin, after.soft_bin, after.passed) == (7, 41, False)
+    failed = grade_part(_results(200e-6), table)        # a spec fail stays a spec fail
+    assert pat.screen("P3", 3, failed, _results(200e-6))[0] is failed
+    assert [o["kind"] for o in pat.lot_json()["outliers"]] == ["static"]
+
+
+def test_a_damaged_alarm_in_lot_json_is_refused(tmp_path: Path) -> None:
+    import json
+
+    from station.datalog.folder import DatalogError, read_lot_header
+
+    folder = make_datalog(tmp_path / "lot", LotSpec(parts=20, seed=2))
+    header = json.loads((folder / "lot.json").read_text())
+    header["alarms"] = [{"rule": "x", "action": "explode", "site": 1, "message": "", "parts": [], "time": ""}]
+    (folder / "lot.json").write_text(json.dumps(header))
+    with pytest.raises(DatalogError, match="alarms"):
+        read_lot_header(folder)

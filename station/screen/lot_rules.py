@@ -143,7 +143,7 @@ class Seen:
 
 @dataclass
 class _State:
-    streak: dict[int, list[str]] = field(default_factory=dict)
+    streak: dict[int, list[Seen]] = field(default_factory=dict)
     recent: deque[Seen] = field(default_factory=deque)
     per_site: dict[int, deque[Seen]] = field(default_factory=dict)
     block: dict[int, list[Seen]] = field(default_factory=dict)
@@ -182,11 +182,12 @@ class LotControl:
         if seen.passed:
             streak.clear()
             return
-        streak.append(seen.part_id)
+        streak.append(seen)
         if len(streak) >= rule.count:
+            bins = ", ".join(str(b) for b in sorted({s.soft_bin for s in streak}))
             self._raise(rule, seen.site, f"site {seen.site}: {len(streak)} failing parts in a row "
-                        f"({streak[0]} to {streak[-1]}): check the contact and the socket of site {seen.site}",
-                        list(streak))
+                        f"({streak[0].part_id} to {streak[-1].part_id}, soft bin {bins}): check the fixture of "
+                        f"site {seen.site} (contact, socket, leakage)", [s.part_id for s in streak])
             streak.clear()
 
     def _rolling_yield(self, rule: Rule, state: _State, seen: Seen) -> None:

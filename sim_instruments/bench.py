@@ -15,6 +15,7 @@ from sim_instruments.bench_errors import BenchErrorSpec, draw_bench_errors
 from sim_instruments.clock import ModelClock
 from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
+from sim_instruments.fixture_faults import FixtureFault
 from sim_instruments.force import ForceSource
 from sim_instruments.handler import Handler
 from sim_instruments.instrument import Instrument
@@ -57,6 +58,9 @@ class SimSettings:
     bench_errors: BenchErrorSpec | None = None
     # A repeatability study: the handler presents these few parts again and again.
     study_plan: StudyPlan | None = None
+    # A fixture that breaks mid-lot (sim_instruments/fixture_faults.py).
+    fixture_faults: tuple[FixtureFault, ...] = ()
+    pat_outlier_share: float = 0.0   # in-spec outliers in the population (population.py)
 
 
 class SimBench:
@@ -69,7 +73,8 @@ class SimBench:
             raise ValueError("line_hz must be 50 or 60")
         self.settings = settings
         self.clock = ModelClock(settings.speed)
-        self.parts = make_population(settings.seed, settings.parts, settings.defects)
+        self.parts = make_population(settings.seed, settings.parts, settings.defects,
+                                     settings.pat_outlier_share)
         dmms = settings.sites if settings.dmm_per_site else 1
         self.errors = (draw_bench_errors(settings.bench_errors, settings.sites, dmms)
                        if settings.bench_errors is not None else None)
@@ -102,7 +107,8 @@ class SimBench:
             self.instruments[role] = Dmm(m, k, s.seed, s.line_hz, **self._common(role, 2 + k))
         self.instruments["switch"] = FixtureSwitch(m, **self._common("switch", 10))
         self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
-                                              plan=s.study_plan, **self._common("handler", 11))
+                                              plan=s.study_plan, fixture_faults=s.fixture_faults, seed=s.seed,
+                                              **self._common("handler", 11))
 
     # --- life cycle ----------------------------------------------------------------------
     def start(self) -> SimBench:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections import Counter
 
+from sim_instruments.fixture_faults import FixtureFault, contact_broken, leakage_a
 from sim_instruments.instrument import Instrument
 from sim_instruments.model import BenchModel
 from sim_instruments.population import PartTruth
@@ -27,7 +28,8 @@ class Handler(Instrument):
     model_name = "ASH-40"
 
     def __init__(self, model: BenchModel, parts: list[PartTruth], index_s: float, skip_parts: int = 0,
-                 plan: StudyPlan | None = None, **kwargs) -> None:
+                 plan: StudyPlan | None = None, fixture_faults: tuple[FixtureFault, ...] = (), seed: int = 0,
+                 **kwargs) -> None:
         if skip_parts < 0:
             raise ValueError("skip_parts must be 0 or more")
         self.model = model
@@ -38,6 +40,8 @@ class Handler(Instrument):
         self.bins: Counter[int] = Counter()
         self.plan = plan
         self.next_index = 0          # study plan: the next index to present
+        self.fixture_faults = fixture_faults
+        self.seed = seed
         super().__init__(**kwargs)
 
     @property
@@ -111,7 +115,7 @@ class Handler(Instrument):
             now = self.clock.now()
             for k, part in enumerate(parts, start=1):
                 self.in_sites[k - 1] = part
-                self.model.seat(k, part, now, contact=part is not None and part.defect != "open")
+                self.model.seat(k, part, now, contact=self._contact(k, part))
 
     def _count(self) -> str:
         if self.plan is not None:
@@ -137,8 +141,15 @@ class Handler(Instrument):
     def _seat_one(self, site: int, part: PartTruth | None) -> None:
         with self.model.lock:
             self.in_sites[site - 1] = part
-            self.model.seat(site, part, self.clock.now(),
-                            contact=part is not None and part.defect != "open")
+            self.model.seat(site, part, self.clock.now(), contact=self._contact(site, part))
+
+    def _contact(self, site: int, part: PartTruth | None) -> bool:
+        """Whether the part in `site` is contacted; sets the site's fixture leakage for it."""
+        if part is None:
+            self.model.leak_a[site - 1] = 0.0
+            return False
+        self.model.leak_a[site - 1] = leakage_a(self.fixture_faults, site, part.index, self.seed)
+        return part.defect != "open" and not contact_broken(self.fixture_faults, site, part.index)
 
     def _bin(self, site: int, hard_bin: int) -> None:
         part = self.in_sites[site - 1]
@@ -157,7 +168,8 @@ class Handler(Instrument):
             was_contacted = self.model.contact[site - 1]
             self.model.seat(site, None, self.clock.now(), contact=False)
         self.clock.sleep(self.index_s / 2.0)
-        contact = was_contacted or (part.defect == "open" and part.reseat_fixes)
+        contact = (was_contacted or (part.defect == "open" and part.reseat_fixes)) and \
+            not contact_broken(self.fixture_faults, site, part.index)
         with self.model.lock:
             self.model.seat(site, part, self.clock.now(), contact=contact)
 

@@ -195,6 +195,7 @@ class BenchModel:
         self.relays: set[int] = set()
         self.seated: list[PartTruth | None] = [None] * fixture.sites
         self.contact: list[bool] = [False] * fixture.sites
+        self.leak_a: list[float] = [0.0] * fixture.sites   # a failing fixture's leakage per site
         self.nodes = [NodeHistory(SATURATED_NODE_V) for _ in range(fixture.sites)]
         self._conditions = [(0.0, 0.0, 0.0)] * fixture.sites
         self.op = self._operating_point()
@@ -301,11 +302,11 @@ class BenchModel:
             if not powered[k - 1]:
                 continue
             if part is None or not self.contact[k - 1]:
-                draw = OPEN_LEAKAGE_A
+                draw = OPEN_LEAKAGE_A + self.leak_a[k - 1]
             elif math.isfinite(part.short_ohm):
                 draw = abs(span) / part.short_ohm
             else:
-                draw = part.iq(span)
+                draw = part.iq(span) + self.leak_a[k - 1]
             demand[0] += draw
             demand[1] += draw
             if (300 + k) in self.relays and part is not None and self.contact[k - 1]:

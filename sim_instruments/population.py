@@ -13,7 +13,10 @@ from dataclasses import dataclass
 import numpy as np
 
 NOMINAL_SPAN_V = 10.0
-DEFECT_KINDS = ("none", "open", "short", "outlier", "crossover")
+DEFECT_KINDS = ("none", "open", "short", "outlier", "crossover", "pat_outlier")
+# An in-spec outlier (for outlier screening): an offset of 100-140 uV, inside the loosest
+# grade's +-150 uV but 7-9 sigma from the population's 15 uV (invented, like all of this).
+PAT_OUTLIER_VOS_V = (100e-6, 140e-6)
 # Cumulative defect shares: 1 % open, 0.5 % short, 1 % offset outlier, 0.5 % bad crossover.
 _DEFECT_EDGES = ((0.010, "open"), (0.015, "short"), (0.025, "outlier"), (0.030, "crossover"))
 WIDTH_10_90_PER_SCALE = 2.0 * math.log(9.0)  # logistic: 10-90 % width = 2 ln 9 * scale
@@ -148,5 +151,14 @@ def make_part(seed: int, index: int, defects: bool = True) -> PartTruth:
     return part
 
 
-def make_population(seed: int, count: int, defects: bool = True) -> list[PartTruth]:
-    return [make_part(seed, i, defects) for i in range(count)]
+def make_population(seed: int, count: int, defects: bool = True, pat_share: float = 0.0) -> list[PartTruth]:
+    """The lot; `pat_share` of its otherwise normal parts become in-spec offset outliers,
+    each decided by its own seeded draw (so part k stays the same whatever the lot size)."""
+    parts = [make_part(seed, i, defects) for i in range(count)]
+    if pat_share > 0:
+        for part in parts:
+            rng = np.random.default_rng([seed, part.index, 4])
+            if part.defect == "none" and rng.random() < pat_share:
+                part.defect = "pat_outlier"
+                part.vos_low_v = float(rng.uniform(*PAT_OUTLIER_VOS_V)) * (1 if rng.random() < 0.5 else -1)
+    return parts

@@ -89,6 +89,7 @@ class LotJob:
     extra_header: dict = field(default_factory=dict)
     # Manual socket: told of every seat the operator confirms (the simulated bench seats a part).
     seated: Callable[[int, str | None], None] | None = None
+    pat_baseline: Path | None = None   # dynamic PAT limits from this earlier lot
 
 
 def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None = None) -> int:
@@ -107,6 +108,7 @@ def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] 
 def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None,
                   stops: StopRequests) -> int:
     from station.cli.lot_console import LotProgress, bin_summary, lot_line
+    from station.cli.screen_commands import ask_pause, pat_preset
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
     from station.lot.runner import LotRunner, LotSettings
@@ -123,12 +125,13 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
         _tell_resume(job.resume, console)
     try:
         settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
-                               max_faults=job.max_faults, extra_header=job.extra_header)
+                               max_faults=job.max_faults, extra_header=job.extra_header,
+                               pat_preset=pat_preset(plan.table, job.pat_baseline))
         with LotProgress(console, job.expected_parts, job.lot_id) as progress:
             live.append(progress)
             runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
-                               way_out=stops.way_out)
+                               way_out=stops.way_out, decide=lambda alarm: ask_pause(alarm, live))
             tally = runner.run()
         with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:
@@ -263,12 +266,21 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
               help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
+@click.option("--inject-outliers", "outlier_share", type=click.FloatRange(0.0, 0.2), default=0.0,
+              help="Share of the simulated parts given an offset inside the limits but far from the "
+                   "population (invented outliers, for outlier screening).")
+@click.option("--pat-baseline", type=click.Path(path_type=Path), default=None,
+              help="Dynamic PAT limits from this earlier lot's datalog instead of this lot's first parts.")
+@click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
+              help="Break the simulated fixture mid-lot: contact:2@40 (site 2 loses contact from part 40), "
+                   "leakage:3@100:5uA (site 3 leaks 5 uA more per part from part 100). Repeatable.")
 @_RESUME
 @_MAX_FAULTS
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
-            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
+            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int,
+            fixture_faults: tuple[str, ...], outlier_share: float, pat_baseline: Path | None) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -277,7 +289,10 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
     operator = _operator(operator)
     if lot_id is not None and out is None and resume_dir is None:
         _default_out(lot_id)          # refused before anything starts
-    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
+    from station.cli.screen_commands import fixture_fault_options
+
+    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed,
+                           fixture_faults=fixture_fault_options(fixture_faults), pat_outlier_share=outlier_share)
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
     resume = None
     if resume_dir is not None:
@@ -290,6 +305,10 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
     lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
     out = out or _default_out(lot_id)
     extra = {"dry_run": {key: getattr(settings, key) for key in _SIM_KEYS}}
+    if settings.fixture_faults:
+        extra["dry_run"]["fixture_faults"] = [f.text() for f in settings.fixture_faults]
+    if settings.pat_outlier_share:
+        extra["dry_run"]["pat_outlier_share"] = settings.pat_outlier_share
     with SimBench(settings) as sim, tempfile.TemporaryDirectory() as temp:
         sim.start()
         config = yaml.safe_load(sim.bench_config_text())
@@ -304,7 +323,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         console.print(f"dry run: simulated bench on loopback, seed {settings.seed}, {settings.parts} parts, "
                       f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
-                     settings.parts, stdf, resume, max_faults, extra, seated=seat)
+                     settings.parts, stdf, resume, max_faults, extra, seated=seat, pat_baseline=pat_baseline)
         try:
             code = _run_lot(job, console, write_truth=sim.write_truth)
         finally:
@@ -347,6 +366,7 @@ def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> 
                           f"--{key} {recorded[key]}; leave it out when resuming")
     for key in _SIM_KEYS:
         setattr(settings, key, recorded[key])
+    settings.pat_outlier_share = float(recorded.get("pat_outlier_share", 0.0))   # the same population
     settings.skip_parts = resume.presented_before
 
 
@@ -381,13 +401,15 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--parts", "expected_parts", type=click.IntRange(1), default=None, help="Expected lot size, for the progress bar.")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
+@click.option("--pat-baseline", type=click.Path(path_type=Path), default=None,
+              help="Dynamic PAT limits from this earlier lot's datalog instead of this lot's first parts.")
 @_RESUME
 @_MAX_FAULTS
 @click.option("--correlation", "correlation_dir", type=click.Path(path_type=Path), default=None,
               help="Start only if this `station correlate` folder passed for this station (recorded in lot.json).")
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
-        max_faults: int, correlation_dir: Path | None) -> None:
+        max_faults: int, correlation_dir: Path | None, pat_baseline: Path | None) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal).
 
     Before wiring real instruments, read the Safety section of the README: outputs are live
@@ -414,7 +436,7 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
 
         extra["correlation"] = correlation_gate(correlation_dir, load_bench_config(bench_path).station, time.time())
     job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
-                 stdf, resume, max_faults, extra)
+                 stdf, resume, max_faults, extra, pat_baseline=pat_baseline)
     sys.exit(_run_lot(job, Console()))
 
 
@@ -438,17 +460,21 @@ def sim_group() -> None:
 @click.option("--bench-errors", "bench_seed", type=int, default=None,
               help="Give the bench its own errors (site offset, DMM gain, leakage) from this seed; "
                    "with --truth they are written to <truth>.bench.json.")
+@click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
+              help="Break the fixture mid-lot: contact:2@40, leakage:3@100:5uA (repeatable).")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
               base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
-              bench_seed: int | None) -> None:
+              bench_seed: int | None, fixture_faults: tuple[str, ...]) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
     from sim_instruments.bench_errors import BenchErrorSpec
     from sim_instruments.serve import parse_fault_option, serve_until_interrupted
+    from station.cli.screen_commands import fixture_fault_options
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
                            dmm_per_site=not single_dmm,
-                           bench_errors=BenchErrorSpec(seed=bench_seed) if bench_seed is not None else None)
+                           bench_errors=BenchErrorSpec(seed=bench_seed) if bench_seed is not None else None,
+                           fixture_faults=fixture_fault_options(fixture_faults))
     parsed = []
     for text in faults:
         try:
@@ -470,6 +496,9 @@ def _register_datalog_tools() -> None:
     main.add_command(correlate_command)
     from station.cli.study_commands import study_group
     main.add_command(study_group)
+    from station.cli import screen_commands
+
+    screen_commands.register(main, limits_group)
 
 
 _register_datalog_tools()

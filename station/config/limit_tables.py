@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, StrictBool, StrictInt, StrictStr
 
@@ -24,6 +24,9 @@ from station.config.parameters import FULL_RANGE, LIMITABLE, PARAMETERS
 from station.config.quantities import parse_quantity
 from station.config.rail_points import parse_rail_point
 from station.config.regions import Region
+
+if TYPE_CHECKING:
+    from station.screen.pat_table import PatLayer
 
 # Regions are checked for tiling at the nominal demo span, and their shared boundaries at a
 # second span too, so a table that tiles only at 10 V is refused.
@@ -101,6 +104,7 @@ class LimitTable:
     tester_fault_soft_bin: int
     source: str
     changes: tuple[dict[str, Any], ...] = ()   # change records, oldest first (station limits set)
+    pat: PatLayer | None = None   # outlier screening layer (station/screen/pat_table.py)
 
     @property
     def loosest(self) -> Grade:
@@ -208,6 +212,7 @@ class _TableModel(_Model):
     fail_hard_bin: BinNumber
     grades: list[_GradeModel]
     changes: list[_ChangeModel] = []
+    pat: Any = None  # checked by station/screen/pat_table.py
 
 
 # ---- cross-checks ---------------------------------------------------------------------------
@@ -220,12 +225,17 @@ def _build(doc: YamlDocument) -> LimitTable:
     contact = _contact(doc, model)
     grades = _grades(doc, model, regions)
     soft_bins = _soft_bins(doc, model, grades)
+    from station.screen.pat_table import read_pat_layer  # the layer lives with the screens
+
+    pat = read_pat_layer(doc, {r.name: r.kind for r in regions}, hard_bins, soft_bins)
+    if pat is not None:
+        soft_bins = dict(sorted({**soft_bins, **pat.soft_bins}.items()))
     return LimitTable(
         product=model.product, note=model.note, regions=regions, grades=grades,
         hard_bins=hard_bins, soft_bins=soft_bins, fail_hard_bin=model.fail_hard_bin,
         contact=contact, tester_fault_hard_bin=model.tester_fault.hard_bin,
         tester_fault_soft_bin=model.tester_fault.soft_bin, source=doc.file,
-        changes=tuple(c.model_dump() for c in model.changes))
+        changes=tuple(c.model_dump() for c in model.changes), pat=pat)
 
 
 def _regions(doc: YamlDocument, model: _TableModel) -> tuple[Region, ...]:
@@ -371,7 +381,7 @@ def _limit(doc: YamlDocument, path: list[str | int], entry: _LimitModel,
     _check_region(doc, path, param, info.region_kind, entry.region, kinds)
     bounds: dict[str, float | None] = {"low": None, "high": None, "spec_low": None, "spec_high": None}
     for key in bounds:
-        raw = getattr(entry, key)
+        raw = getattr(entry, key, None)   # a PAT layer's limits have no spec_* (station/screen)
         if raw is None:
             continue
         try:
@@ -399,16 +409,17 @@ def _limit(doc: YamlDocument, path: list[str | int], entry: _LimitModel,
                             f"outside its specification limit {_show(spec, info.units)}",
                             "a guard band moves the acceptance limit inside the spec limit")
     guard_u = None
-    if entry.guard is not None:
+    guard = getattr(entry, "guard", None)
+    if guard is not None:
         units = "V/V" if info.units == "dB" else info.units
         try:
-            guard_u = parse_quantity(entry.guard.u, units)
+            guard_u = parse_quantity(guard.u, units)
         except ValueError as exc:
             raise doc.error([*path, "guard", "u"], f"guard uncertainty: {exc}") from None
         if guard_u < 0:
             raise doc.error([*path, "guard", "u"], "a standard uncertainty cannot be negative")
     return Limit(param, entry.region, low, high, info.units, entry.soft_bin, entry.bin, spec_low, spec_high,
-                 guard_u, entry.guard.k if entry.guard else None)
+                 guard_u, guard.k if guard else None)
 
 
 def _check_region(doc: YamlDocument, path: list[str | int], param: str, kind: str | None,

@@ -30,6 +30,7 @@ from station.config.quantities import format_quantity
 from station.config.rail_points import RailPoint, rails_for
 from station.config.step_spec import Nplc, SettleSpec, Span
 from station.kinds.registry import KINDS, kind_of
+from station.screen.lot_rules import Rule, read_lot_control
 
 TEST_KINDS = tuple(KINDS)
 
@@ -95,6 +96,7 @@ class Sequence:
     autozero: bool
     tests: tuple[TestStep, ...]
     source: str
+    lot_control: tuple[Rule, ...] = ()   # station/screen/lot_rules.py
 
     def steps(self, kind: str) -> tuple[TestStep, ...]:
         return tuple(t for t in self.tests if t.kind == kind)
@@ -130,6 +132,7 @@ class SequenceFile(Strict):
     settle: SettleSpec | None = None
     stop_on_fail: Flag = False
     tests: list[Any]
+    lot_control: Any = None   # read by station/screen/lot_rules.py
 
 
 def load_sequence(path: str | Path) -> Sequence:
@@ -176,7 +179,8 @@ def _build(doc: YamlDocument) -> Sequence:
                         "it finds opens and shorts before the part is measured")
     return Sequence(name=top.sequence, product=top.product, span_v=top.supply.span,
                     compliance_a=top.supply.compliance, dmm_range_v=top.dmm.range,
-                    autozero=top.dmm.autozero, tests=tuple(steps), source=doc.file)
+                    autozero=top.dmm.autozero, tests=tuple(steps), source=doc.file,
+                    lot_control=read_lot_control(doc, top.lot_control))
 
 
 def _step(doc: YamlDocument, raw: Any, i: int, top: SequenceFile, settle: Settle) -> TestStep:

@@ -7,7 +7,7 @@ instead of failing deep inside a summary. Fields not listed are kept as they are
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
@@ -27,6 +27,17 @@ class ConfigCopy(_Open):
     sha256: str | None = None
 
 
+class AlarmRecord(_Open):
+    """One lot-control alarm (station/screen/lot_rules.py); a live page reads these."""
+
+    rule: str
+    action: Literal["warn", "pause", "stop"]
+    site: int | None
+    message: str
+    parts: list[str]
+    time: str
+
+
 class LotHeaderFields(_Open):
     lot_id: str | None = None
     product: str | None = None
@@ -44,6 +55,8 @@ class LotHeaderFields(_Open):
     limits: ConfigCopy | None = None
     bench: ConfigCopy | None = None
     instruments: dict[str, str] | None = None
+    alarms: list[AlarmRecord] | None = None
+    paused: bool | None = None
 
 
 def header_problem(header: dict[str, Any]) -> tuple[str, str] | None:

@@ -25,10 +25,14 @@ from station.config.plan import ScreenPlan
 from station.datalog.resume import ResumeState, part_fields
 from station.datalog.writer import DatalogWriter, PartRecord
 from station.errors import EXIT_SOFTWARE, EXIT_STOPPED, Stopped  # exit codes of a stop
+from station.judge.grading import Verdict, tester_fault_verdict
 from station.lot.bench import Bench
 from station.lot.index_screen import IndexScreen, PartOutcome
 from station.lot.site_readings import SiteReader
 from station.lot.stop_signals import LotInterrupted, signals_deferred, signals_held
+from station.screen.dynamic_pat import LotPat
+from station.screen.lot_guard import LotGuard, no_operator
+from station.screen.lot_rules import Alarm
 
 __all__ = ["LotInterrupted", "LotRunner", "LotSettings", "LotStopped", "LotTally"]
 
@@ -47,6 +51,7 @@ class LotSettings:
     max_faults: int = 3             # faulted attempts in a row before the lot stops
     fault_pause_s: float = 0.5      # wait before recovering, times the attempt number
     extra_header: dict = field(default_factory=dict)   # e.g. the dry run's simulated lot
+    pat_preset: tuple[list, str] | None = None   # dynamic PAT limits from a previous lot, and whence
 
     @property
     def is_study(self) -> bool:
@@ -98,7 +103,8 @@ class LotRunner:
                  on_part: Callable[[PartRecord, LotTally], None] | None = None,
                  sleep: Callable[[float], None] = time.sleep, resume: ResumeState | None = None,
                  tell: Callable[[str], None] = lambda text: None,
-                 way_out: Callable[[], None] = lambda: None) -> None:
+                 way_out: Callable[[], None] = lambda: None,
+                 decide: Callable[[Alarm], str] = no_operator) -> None:
         self.plan = plan
         self.way_out = way_out     # told first thing on the way out: later signals stop nothing
         self.bench = bench
@@ -119,6 +125,14 @@ class LotRunner:
         self._final_bins: dict[str, int] = {}  # finished parts -> the hard bin they were sorted to
         self._consecutive_faults = 0
         self._earlier_retries: dict[str, int] = {}
+        self._verdicts: dict[str, Verdict] = {}     # after PAT, for sorting
+        # Lot control (station/screen): alarms on a bench problem, acted on between indexes.
+        self.guard = LotGuard(plan.sequence.lot_control, plan.bench.sites, write=self._write_header_fields,
+                              tell=tell, decide=decide, make_safe=self._make_safe,
+                              power_up=lambda: self._tolerant(self.screen.power_up),
+                              earlier=list(resume.header.get("alarms", [])) if resume is not None else None)
+        preset = settings.pat_preset
+        self.pat = LotPat(plan.table, preset[0] if preset else None, preset[1] if preset else "")
         if resume is not None:
             self._take_over(resume)
 
@@ -132,6 +146,11 @@ class LotRunner:
         self._seen_ids = resume.seen_ids
         self.tally.faulted_attempts = int(resume.header.get("faulted_attempts", 0))
         self._earlier_retries = dict(resume.header.get("instrument_retries", {}))
+        from station.screen.pat_outcome import earlier_pat, results_by_part
+
+        earlier = earlier_pat(resume.header)
+        ids = {str(p) for p in (earlier.get("dynamic") or {}).get("baseline_parts", [])}
+        self.pat.restore(earlier, results_by_part(resume.result_rows, ids))
 
     def header(self) -> dict:
         plan, table = self.plan, self.plan.table
@@ -145,6 +164,8 @@ class LotRunner:
             "tests": [{"test_num": t.test_num, "test_txt": t.test_txt, "param": t.param,
                        "region": t.region or "", "units": t.units} for t in plan.tests],
             **self.settings.extra_header,
+            "alarms": [], "paused": False,
+            **({"pat": self.pat.lot_json()} if self.pat.active else {}),
         }
 
     def run(self) -> LotTally:
@@ -164,6 +185,9 @@ class LotRunner:
                 if ids is None:
                     break
                 self._index(ids)
+                why = self.guard.after_index()
+                if why is not None:
+                    raise LotStopped(why)
         except LotInterrupted as exc:
             self._stop(str(exc) or "interrupted", EXIT_STOPPED)
         except KeyboardInterrupt:
@@ -187,6 +211,14 @@ class LotRunner:
     def _stop(self, why: str, code: int) -> None:
         self.tally.stopped_because = why
         self.tally.stop_code = code
+
+    def _write_header_fields(self, fields: dict) -> None:
+        self.writer.header.update(fields)
+        self.writer.write_header()
+
+    def _make_safe(self) -> list[str]:
+        # power_up afterwards sets every level again (its own cache reset), outputs last.
+        return self.bench.safe_state()
 
     def _finish_datalog(self) -> None:
         try:
@@ -240,7 +272,9 @@ class LotRunner:
         # it is sorted to the bin it got then.
         done = {} if self.settings.is_study else self._final_bins
         again = {site: pid for site, pid in enumerate(ids, start=1) if pid in done}
-        todo = [None if pid in done else pid for pid in ids]
+        skipped = {site: pid for site, pid in enumerate(ids, start=1)
+                   if pid and pid not in done and site in self.guard.skipped}
+        todo = [None if pid in done or site in skipped else pid for site, pid in enumerate(ids, start=1)]
         pending = list(todo)
         finished: list[tuple[PartOutcome, int]] = []
         self._mark(todo)
@@ -261,17 +295,34 @@ class LotRunner:
             sites = {o.site for o in faulted}
             pending = [pid if site in sites else None for site, pid in enumerate(todo, start=1)]
         self._consecutive_faults = 0
-        for outcome, test_t_ms in sorted(finished, key=lambda item: item[0].site):
+        for found, test_t_ms in sorted(finished, key=lambda item: item[0].site):
+            outcome = self._pat(found)
             self._log(outcome, test_t_ms)
             self._final_bins[outcome.part_id] = outcome.verdict.hard_bin
         self.writer.clear_in_progress()
         for outcome, _ in finished:
-            verdict = outcome.verdict
+            verdict = self._verdicts.pop(outcome.part_id, outcome.verdict)
             self._tolerant(partial(self.bench.handler.assign_bin, outcome.site, verdict.hard_bin, verdict.reason))
+        for site, pid in skipped.items():   # untested: to the retest bin
+            verdict = tester_fault_verdict(self.plan.table, f"site {site} skipped by the operator (lot control)")
+            self._log(PartOutcome(site, pid, verdict, [], verdict.reason), 0)
+            self._final_bins[pid] = verdict.hard_bin
+            self._tolerant(partial(self.bench.handler.assign_bin, site, verdict.hard_bin, verdict.reason))
         for site, pid in again.items():
             self.tell(f"site {site}: {pid} was tested before this lot was resumed; sorted to bin "
                       f"{self._final_bins[pid]} as logged")
             self._tolerant(partial(self.bench.handler.assign_bin, site, self._final_bins[pid], "as logged"))
+
+    def _pat(self, outcome: PartOutcome) -> PartOutcome:
+        """The part after PAT (station/screen); lot.json says when the dynamic limits are set."""
+        from station.screen.pat_outcome import pat_outcome
+
+        after, ready = pat_outcome(self.pat, outcome)
+        if ready:
+            self.tell(f"dynamic PAT: limits set from the first {len(self.pat.baseline)} passing parts")
+            self._write_header_fields({"pat": self.pat.lot_json()})
+        self._verdicts[outcome.part_id] = after.verdict
+        return after
 
     def _mark(self, todo: list[str | None]) -> None:
         self.writer.mark_in_progress([pid for pid in todo if pid], presented_before=len(self._final_bins))
@@ -289,6 +340,7 @@ class LotRunner:
             self.writer.write_part(record, outcome.rows)
         self.tally.add(verdict.hard_bin, verdict.soft_bin, verdict.passed, verdict.grade, retest)
         self.tally.session_parts += 1
+        self.guard.observe(record.part_id, record.site, record.passed, record.soft_bin)
         self.on_part(record, self.tally)
 
     def _end_of_lot(self) -> dict:
@@ -309,6 +361,8 @@ class LotRunner:
                           for n, b in sorted(table.hard_bins.items())},
             "soft_bins": {str(n): {"name": b.name, "pass": b.passing, "count": tally.soft_bins.get(n, 0)}
                           for n, b in sorted(table.soft_bins.items())},
+            **self.guard.fields(),
+            **({"pat": self.pat.lot_json(final=True)} if self.pat.active else {}),
         }
 
 

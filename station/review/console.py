@@ -10,6 +10,7 @@ from rich.table import Table
 
 from station.review.summary import Summary
 from station.review.units import display_unit, fmt, fmt_share
+from station.screen.review import screen_tables
 
 HEAD = "bold dark_cyan"
 FLAG = "bold dark_orange"
@@ -31,6 +32,9 @@ def _num(value: float, digits: int = 4) -> str:
 def print_summary(summary: Summary, console: Console) -> None:
     for table in summary_tables(summary):
         console.print(table)
+    if summary.screening is not None:
+        for table in screen_tables(summary.screening):
+            console.print(table)
     console.print(f"Site difference: {summary.site_test.describe()}")
     console.print(f"Limits for Cpk: {summary.limits_source}")
     console.print("Yield = good / (good + failed); tester faults have no pass/fail and are left out. "

@@ -28,6 +28,7 @@ from station.config.regions import Region
 from station.judge import grading, measure
 from station.review.limits import datalog_table
 from station.review.load import RAW_PARAMS, Datalogs
+from station.screen.pat_apply import pat_verdict
 
 REGION_PARAMS = frozenset({"cmrr", "cmrr_slope", "cm_step", "vos_worst"})
 BIN_TOLERANCE_V = 1e-9
@@ -113,6 +114,8 @@ def rebin(logs: Datalogs, new: LimitTable) -> RebinResult:
             recomputed += [(int(seq), r.param, r.region or "", r.value)
                            for r in part_results if r.param in REGION_PARAMS]
         verdict = grading.grade_part(part_results, new)
+        if new.pat is not None:           # a passing part outside a PAT limit (station/screen)
+            verdict = pat_verdict(verdict, part_results, new.pat.limits, new)
         hard[i], soft[i] = verdict.hard_bin, verdict.soft_bin
         grade[i] = verdict.grade or ""
         passed[i] = np.nan if verdict.passed is None else float(verdict.passed)

@@ -20,6 +20,7 @@ from station.review.capability import capability, parameter_stats
 from station.review.limits import limits_in_force
 from station.review.load import Datalogs
 from station.review.sites import SiteTest, site_table
+from station.screen.review import ScreenReview, screen_review
 
 GROUPINGS = ("site", "lot", "station", "hour")
 
@@ -40,6 +41,7 @@ class Summary:
     by: str | None = None
     by_table: pd.DataFrame | None = None
     notes: list[str] = field(default_factory=list)
+    screening: ScreenReview | None = None   # lot-control alarms and PAT (station/screen/review.py)
 
 
 def summarise(logs: Datalogs, by: str | None = None) -> Summary:
@@ -56,7 +58,8 @@ def summarise(logs: Datalogs, by: str | None = None) -> Summary:
         soft_bins=bin_counts(parts, "SOFT_BIN", logs.bin_names("soft_bins"), logs.bin_passing("soft_bins")),
         pareto=failure_pareto(parts, logs.bin_names("soft_bins")),
         sites=sites, site_test=site_test, stats=stats, cpk=capability(stats, limits),
-        limits_source=limits_source, grade_order=grade_order, notes=list(logs.warnings))
+        limits_source=limits_source, grade_order=grade_order, notes=list(logs.warnings),
+        screening=screen_review(logs))
     if by is not None:
         summary.by = by
         summary.by_table = yield_by(parts, group_key(logs, by), by, grade_order)

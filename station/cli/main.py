@@ -16,6 +16,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import click
 import yaml
@@ -23,6 +24,7 @@ from rich.console import Console
 
 from drivers.errors import InstrumentError, RequestRefused
 from station import __version__
+from station.cli.view_commands import view_option
 from station.config.files import ConfigError
 from station.datalog.folder import SAFE_NAME_CHARS, is_safe_folder_name
 from station.datalog.resume import ResumeState
@@ -89,6 +91,7 @@ class LotJob:
     extra_header: dict = field(default_factory=dict)
     # Manual socket: told of every seat the operator confirms (the simulated bench seats a part).
     seated: Callable[[int, str | None], None] | None = None
+    view: Any = None               # a ViewAddress: serve the live page (station/cli/view_commands.py)
 
 
 def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None = None) -> int:
@@ -107,6 +110,7 @@ def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] 
 def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None,
                   stops: StopRequests) -> int:
     from station.cli.lot_console import LotProgress, bin_summary, lot_line
+    from station.cli.view_commands import live_view
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
     from station.lot.runner import LotRunner, LotSettings
@@ -124,11 +128,17 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
     try:
         settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
                                max_faults=job.max_faults, extra_header=job.extra_header)
-        with LotProgress(console, job.expected_parts, job.lot_id) as progress:
+        with live_view(job.view, job.out, job.expected_parts, lambda text: _say(console, text)) as page, \
+                LotProgress(console, job.expected_parts, job.lot_id) as progress:
             live.append(progress)
-            runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
+
+            def on_part(record, tally) -> None:
+                progress.update(record, tally)
+                page.poke()
+
+            runner = LotRunner(plan, bench, writer, settings, on_part=on_part,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
-                               way_out=stops.way_out)
+                               way_out=page.way_out(stops.way_out))
             tally = runner.run()
         with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:
@@ -265,10 +275,11 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 @_RESUME
 @_MAX_FAULTS
+@view_option
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
-            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
+            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int, view: Any) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -304,7 +315,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         console.print(f"dry run: simulated bench on loopback, seed {settings.seed}, {settings.parts} parts, "
                       f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
-                     settings.parts, stdf, resume, max_faults, extra, seated=seat)
+                     settings.parts, stdf, resume, max_faults, extra, seated=seat, view=view)
         try:
             code = _run_lot(job, console, write_truth=sim.write_truth)
         finally:
@@ -380,9 +391,10 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 @_RESUME
 @_MAX_FAULTS
+@view_option
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
-        max_faults: int) -> None:
+        max_faults: int, view: Any) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
     lot_id = _lot_id(lot_id)
     operator = _operator(operator)
@@ -398,7 +410,7 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
     if out is None:
         raise Refused("--out is required (the datalog folder), unless --resume continues a lot")
     job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
-                 stdf, resume, max_faults)
+                 stdf, resume, max_faults, view=view)
     sys.exit(_run_lot(job, Console()))
 
 
@@ -441,8 +453,10 @@ def _register_datalog_tools() -> None:
     """Commands that read datalogs only: convert and verify, summary, rebin, limits."""
     from station.cli.datalog_commands import convert_command, verify_command
     from station.cli.review_commands import limits_group, rebin_command, summary_command
+    from station.cli.view_commands import view_command
 
-    for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
+    for command in (convert_command, verify_command, summary_command, rebin_command, limits_group,
+                    view_command):
         main.add_command(command)
 
 

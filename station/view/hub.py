@@ -17,15 +17,17 @@ from station.view.snapshot import LotSnapshots, snapshot_json
 
 POLL_S = 0.5              # look at the folder's files this often
 REFRESH_S = 5.0           # recompute at least this often (elapsed time, remaining, quiet lot)
+MIN_GAP_S = 0.25          # and at most this often: the sites of an index are logged in a burst
 MAX_PAGES = 32            # open pages at once; more are refused (503)
 
 
 class SnapshotHub:
     def __init__(self, snapshots: LotSnapshots, poll_s: float = POLL_S, refresh_s: float = REFRESH_S,
-                 on_error: Callable[[str], None] | None = None) -> None:
+                 on_error: Callable[[str], None] | None = None, min_gap_s: float = MIN_GAP_S) -> None:
         self.snapshots = snapshots
         self.poll_s = poll_s
         self.refresh_s = refresh_s
+        self.min_gap_s = min_gap_s
         self.on_error = on_error or (lambda text: None)
         self.latest = snapshot_json({"state": {"key": "waiting", "label": "WAITING", "detail": "starting"}})
         self.computed = 0          # snapshots computed, for tests and the benchmark
@@ -84,6 +86,7 @@ class SnapshotHub:
             if now_signature != signature or time.monotonic() - last >= self.refresh_s:
                 signature, last = now_signature, time.monotonic()
                 self._refresh()
+                self._stop.wait(self.min_gap_s)
 
     def _refresh(self) -> None:
         try:

@@ -54,7 +54,7 @@ class LotSnapshots:
         self.phase = phase or Phase()
         self.parts = PartsFollower(self.folder / PARTS_CSV)
         self._header: dict[str, Any] | None = None
-        self._header_stamp: tuple[int, int] | None = None
+        self._header_stamp: tuple[int, int, int] | None = None
         self._limits: tuple[str, LimitTable | None, str] | None = None   # (sha256, table, problem)
 
     def signature(self) -> tuple:
@@ -127,12 +127,13 @@ class LotSnapshots:
         return self._limits[1]
 
 
-def _stamp(path: Path) -> tuple[int, int]:
+def _stamp(path: Path) -> tuple[int, int, int]:
+    # The inode too: lot.json is rewritten by rename, which may keep its size and time.
     try:
         info = path.stat()
     except OSError:
-        return (-1, -1)
-    return (info.st_size, info.st_mtime_ns)
+        return (-1, -1, -1)
+    return (info.st_ino, info.st_size, info.st_mtime_ns)
 
 
 def _state(key: str, label: str, detail: str) -> dict[str, str]:

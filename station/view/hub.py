@@ -94,8 +94,12 @@ class SnapshotHub:
         except Exception as exc:   # the page must never take the station down; say why instead
             self.on_error(f"live page: snapshot failed: {type(exc).__name__}: {exc}")
             return
-        self.latest = text
         self.computed += 1
+        self.publish(text)
+
+    def publish(self, text: str) -> None:
+        """Make `text` the latest snapshot and offer it to every open page (never waits)."""
+        self.latest = text
         with self._lock:
             pages = list(self._pages.items())
         for queue, loop in pages:

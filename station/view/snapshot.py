@@ -63,6 +63,9 @@ class LotSnapshots:
 
     def compute(self, now: float | None = None) -> dict[str, Any]:
         now = time.time() if now is None else now
+        # The phase before the files: every row is written before the way out begins, so a
+        # snapshot that says "safe state" holds them all.
+        phase = self.phase.value
         snapshot: dict[str, Any] = {"generated_t": now, "folder": str(self.folder), "problems": []}
         try:
             header = self._read_header()
@@ -95,7 +98,7 @@ class LotSnapshots:
         snapshot["safe_state"] = [str(line) for line in header.get("safe_state") or []]
         ends = frame["END_T"].dropna()
         quiet_s = now - float(ends.iloc[-1]) if len(ends) else 0.0
-        snapshot["state"] = bench_state(header, frame, self.phase.value, quiet_s)
+        snapshot["state"] = bench_state(header, frame, phase, quiet_s)
         return snapshot
 
     def _expected(self, header: dict[str, Any]) -> int | None:
@@ -202,7 +205,7 @@ def progress_fields(header: dict[str, Any], frame: pd.DataFrame, now: float,
     stop = float(end) if isinstance(end, int | float) else now
     elapsed = stop - float(start) if isinstance(start, int | float) else None
     finished = int(frame["PART_ID"].nunique())
-    rate = recent_rate(frame["END_T"].to_numpy())
+    rate = recent_rate(frame["END_T"].to_numpy(), frame["SITE_NUM"].to_numpy())
     remaining = None
     if expected and rate and not ended:
         remaining = max(expected - finished, 0) / rate * 3600.0
@@ -210,19 +213,25 @@ def progress_fields(header: dict[str, Any], frame: pd.DataFrame, now: float,
             "parts_per_hour": rate, "remaining_s": remaining, "ended": ended}
 
 
-def recent_rate(end_t: np.ndarray) -> float | None:
-    """Part rows per hour over the last RATE_WINDOW rows, from their END_T (None: too few).
-    The sites of one index end together, so the span runs from the first index of the
-    window to the last, and the rows of the first index are not counted in it."""
-    times = end_t[~np.isnan(end_t)][-RATE_WINDOW:]
+def recent_rate(end_t: np.ndarray, sites: np.ndarray) -> float | None:
+    """Part rows per hour over the last RATE_WINDOW rows (None: fewer than two indexes).
+
+    The rows of one handler index are logged one after the other with rising site numbers,
+    so an index starts where the site number does not rise (the summary's rule). The rate is
+    the rows of the indexes after the first of the window over the time from the end of that
+    first index to the end of the last one."""
+    keep = ~np.isnan(end_t)
+    times, site = end_t[keep][-RATE_WINDOW:], sites[keep][-RATE_WINDOW:]
     if len(times) < 2:
         return None
-    first = times[0]
-    later = times[times > first + 1e-3]
-    span = float(times[-1] - first)
-    if span <= 0 or len(later) == 0:
+    starts = np.flatnonzero(np.r_[True, site[1:] <= site[:-1]])
+    if len(starts) < 2:
         return None
-    return 3600.0 * len(later) / span
+    first_end = float(times[starts[1] - 1])
+    span = float(times[-1]) - first_end
+    if span <= 0:
+        return None
+    return 3600.0 * (len(times) - starts[1]) / span
 
 
 # --- yield, bins, sites -----------------------------------------------------------------

@@ -8,6 +8,7 @@ import json
 from collections import Counter
 from pathlib import Path
 
+import numpy as np
 import pytest
 from scipy import stats
 
@@ -168,9 +169,12 @@ def test_alarms_by_the_lot_control_contract(tmp_path: Path) -> None:
 
 def test_waiting_before_the_lot_starts_and_the_remaining_time(tmp_path: Path) -> None:
     assert LotSnapshots(tmp_path).compute()["state"]["key"] == "waiting"
-    # 4 sites, an index every 2 s: rows after the first index over the span.
-    ends = [100.0] * 4 + [102.0] * 4 + [104.0] * 4
-    assert recent_rate(__import__("numpy").array(ends)) == pytest.approx(3600.0 * 8 / 4.0)
+    # 4 sites, an index every 2 s, its rows logged a few ms apart: the rows after the first
+    # index over the time from its end to the last one's.
+    ends = np.array([100.0, 100.01, 100.02, 100.03, 102.0, 102.01, 102.02, 102.03, 104.0, 104.01])
+    sites = np.array([1, 2, 3, 4, 1, 2, 3, 4, 1, 2])
+    assert recent_rate(ends, sites) == pytest.approx(3600.0 * 6 / (104.01 - 100.03))
+    assert recent_rate(ends[:4], sites[:4]) is None          # one index: no rate yet
     folder = make_datalog(tmp_path / "lot", LotSpec(parts=40, tester_faults=0, opens=0, shorts=0, retests=0))
     lot = running(folder)
     progress = LotSnapshots(folder, expected_parts=100).compute(lot["start_t"] + 20.0)["progress"]

@@ -28,9 +28,9 @@ function duration(seconds) {
   return (h ? h + " h " : "") + String(m).padStart(h ? 2 : 1, "0") + " min " + String(r).padStart(2, "0") + " s";
 }
 
-function clock(t) {
+function clock(t, zone = " UTC") {
   if (t == null) return "";
-  return new Date(t * 1000).toISOString().slice(11, 19) + " UTC";
+  return new Date(t * 1000).toISOString().slice(11, 19) + zone;
 }
 
 function fill(id, rows) { $(id).replaceChildren(...rows); }
@@ -65,7 +65,7 @@ function drawLot(s) {
 function drawBins(bins) {
   fill("bin-tiles", (bins || []).map((b) => el("div", { class: "tile", "data-pass": String(b.pass), "data-bin": String(b.bin) },
     el("div", { class: "bin-head" }, el("span", {}, "BIN " + b.bin), el("span", { class: "pf" }, b.pass ? "PASS" : "FAIL")),
-    el("div", { class: "count", "data-bin-count": String(b.bin) }, b.count),
+    el("div", { class: "count", "data-bin-count": String(b.bin), "data-digits": String(String(b.count).length) }, b.count),
     el("div", { class: "name" }, b.name),
     el("div", { class: "share" }, pct(b.share)))));
 }
@@ -90,7 +90,7 @@ function drawSites(sites) {
 function drawFailing(rows) {
   fill("failing-rows", (rows || []).map((r) => el("tr", { class: r.fault ? "fault-row" : "" },
     el("td", {}, r.part_id), el("td", { class: "num" }, r.site), el("td", { class: "num" }, r.hard_bin + "/" + r.soft_bin),
-    el("td", { class: "what" }, r.what), el("td", { class: "what" }, clock(r.end_t)))));
+    el("td", { class: "what" }, r.what), el("td", { class: "what" }, clock(r.end_t, "")))));
   if (!rows || !rows.length) fill("failing-rows", [el("tr", {}, el("td", { colspan: "5" }, "no failing part yet"))]);
 }
 

@@ -18,6 +18,7 @@ from station.view.snapshot import LotSnapshots, snapshot_json
 POLL_S = 0.5              # look at the folder's files this often
 REFRESH_S = 5.0           # recompute at least this often (elapsed time, remaining, quiet lot)
 MIN_GAP_S = 0.25          # and at most this often: the sites of an index are logged in a burst
+DUTY = 0.1                # and never more than this share of the time (a long lot's snapshot takes longer)
 MAX_PAGES = 32            # open pages at once; more are refused (503)
 
 
@@ -31,6 +32,7 @@ class SnapshotHub:
         self.on_error = on_error or (lambda text: None)
         self.latest = snapshot_json({"state": {"key": "waiting", "label": "WAITING", "detail": "starting"}})
         self.computed = 0          # snapshots computed, for tests and the benchmark
+        self._last_error = ""
         self._pages: dict[asyncio.Queue[str], asyncio.AbstractEventLoop] = {}
         self._lock = threading.Lock()
         self._wake = threading.Event()
@@ -86,14 +88,19 @@ class SnapshotHub:
             if now_signature != signature or time.monotonic() - last >= self.refresh_s:
                 signature, last = now_signature, time.monotonic()
                 self._refresh()
-                self._stop.wait(self.min_gap_s)
+                took = time.monotonic() - last
+                self._stop.wait(max(self.min_gap_s, took / DUTY - took))
 
     def _refresh(self) -> None:
         try:
             text = snapshot_json(self.snapshots.compute())
         except Exception as exc:   # the page must never take the station down; say why instead
-            self.on_error(f"live page: snapshot failed: {type(exc).__name__}: {exc}")
+            text = f"live page: snapshot failed: {type(exc).__name__}: {exc}"
+            if text != self._last_error:          # once, not at every poll
+                self.on_error(text)
+            self._last_error = text
             return
+        self._last_error = ""
         self.computed += 1
         self.publish(text)
 

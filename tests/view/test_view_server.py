@@ -207,3 +207,35 @@ def test_a_page_that_never_reads_holds_one_snapshot_and_a_gone_page_nothing(serv
     ok = request(server.port, "/snapshot.json")
     assert ok[0] == 200                       # the server still answers everyone else
     stuck.close()
+
+
+def test_a_dry_run_on_another_address_prints_its_token_and_refuses_without_it(tmp_path: Path) -> None:
+    process = subprocess.Popen([sys.executable, "-m", "station.cli.main", "dry-run", "--parts", "8", "--out",
+                                str(tmp_path / "lot"), "--view", "0.0.0.0:0"],
+                               stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    try:
+        assert process.stdout is not None
+        lines = [process.stdout.readline() for _ in range(3)]
+        match = re.search(r"live page: http://[^:/]+:(\d+)/\?token=(\S+)", "".join(lines))
+        assert match, lines
+        port, token = int(match[1]), match[2]
+        # While the lot runs: nothing without the token, the snapshot with it.
+        assert request(port, "/")[0] == 403
+        assert request(port, "/events")[0] == 403
+        status, _, body = request(port, "/snapshot.json", headers={"Authorization": f"Bearer {token}"})
+        assert status == 200 and b'"state"' in body
+        output, _ = process.communicate(timeout=120)
+    finally:
+        if process.poll() is None:
+            process.kill()
+            process.wait()
+    assert process.returncode == 0, output
+    assert token not in (tmp_path / "lot" / "lot.json").read_text()     # never written to a file
+
+
+def test_a_bad_view_option_is_refused_before_anything_starts(tmp_path: Path) -> None:
+    result = subprocess.run([sys.executable, "-m", "station.cli.main", "dry-run", "--out", str(tmp_path / "lot"),
+                             "--view", "nowhere"], capture_output=True, text=True, timeout=60)
+    assert result.returncode == 2
+    assert "give PORT or HOST:PORT" in result.stderr
+    assert not (tmp_path / "lot").exists()

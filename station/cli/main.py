@@ -15,6 +15,7 @@ import tempfile
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 from typing import Any
 
@@ -128,7 +129,7 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
     try:
         settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
                                max_faults=job.max_faults, extra_header=job.extra_header)
-        with live_view(job.view, job.out, job.expected_parts, lambda text: _say(console, text)) as page, \
+        with live_view(job.view, job.out, job.expected_parts, partial(_say_whole, console)) as page, \
                 LotProgress(console, job.expected_parts, job.lot_id) as progress:
             live.append(progress)
 
@@ -175,6 +176,11 @@ def _say(console: Console, text: str, style: str | None = None) -> None:
     """Print text that may hold instrument replies and SCPI commands: no markup, no emoji
     (rich would turn ':ZERO:' into an emoji and '[...]' into styles)."""
     console.print(text, style=style, markup=False, emoji=False, highlight=False)
+
+
+def _say_whole(console: Console, text: str) -> None:
+    """A line never wrapped (an address to copy)."""
+    console.print(text, markup=False, emoji=False, highlight=False, soft_wrap=True)
 
 
 def _tell_resume(state: ResumeState, console: Console) -> None:

@@ -55,13 +55,14 @@ class LotRun:
 
 def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
             sleep: Callable[[float], None] | None = None, lot_id: str = "BENCH",
-            separate_process: bool = False) -> LotRun:
+            separate_process: bool = False, on_part: Callable | None = None) -> LotRun:
     """Run a lot. At a sim speed above 1 the station's waits are scaled to model time; its
     clock is not: its settling compares groups by their integration time (model seconds)
     anyway, and its hard bound then stays in wall time, where its own overhead is.
 
     `separate_process`: the simulated bench runs in a process of its own
-    (`benchmarks/bench_process.py`), as a real bench's instruments are other machines."""
+    (`benchmarks/bench_process.py`), as a real bench's instruments are other machines.
+    `on_part` is told of every part logged, as the command line's live page is."""
     speed = settings.speed
     if sleep is None:
         sleep = time.sleep if speed == 1 else (lambda seconds: time.sleep(seconds / speed))
@@ -74,7 +75,8 @@ def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
         writer = DatalogWriter(out, force=True)
         bench = open_bench(plan.bench)
         try:
-            runner = LotRunner(plan, bench, writer, LotSettings(lot_id, "bench", "dry-run"), sleep=sleep)
+            runner = LotRunner(plan, bench, writer, LotSettings(lot_id, "bench", "dry-run"), sleep=sleep,
+                               on_part=on_part)
             start_wall = time.time()
             start = time.monotonic()
             tally = runner.run()

@@ -15,7 +15,9 @@ import tempfile
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
+from typing import Any
 
 import click
 import yaml
@@ -23,6 +25,7 @@ from rich.console import Console
 
 from drivers.errors import InstrumentError, RequestRefused
 from station import __version__
+from station.cli.view_commands import view_option
 from station.config.files import ConfigError
 from station.datalog.folder import SAFE_NAME_CHARS, is_safe_folder_name
 from station.datalog.resume import ResumeState
@@ -90,6 +93,7 @@ class LotJob:
     # Manual socket: told of every seat the operator confirms (the simulated bench seats a part).
     seated: Callable[[int, str | None], None] | None = None
     pat_baseline: Path | None = None   # dynamic PAT limits from this earlier lot
+    view: Any = None               # a ViewAddress: serve the live page (station/cli/view_commands.py)
 
 
 def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None = None) -> int:
@@ -109,6 +113,7 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
                   stops: StopRequests) -> int:
     from station.cli.lot_console import LotProgress, bin_summary, lot_line
     from station.cli.screen_commands import ask_pause, pat_preset
+    from station.cli.view_commands import live_view
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
     from station.lot.runner import LotRunner, LotSettings
@@ -127,11 +132,17 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
         settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
                                max_faults=job.max_faults, extra_header=job.extra_header,
                                pat_preset=pat_preset(plan.table, job.pat_baseline))
-        with LotProgress(console, job.expected_parts, job.lot_id) as progress:
+        with live_view(job.view, job.out, job.expected_parts, partial(_say_whole, console)) as page, \
+                LotProgress(console, job.expected_parts, job.lot_id) as progress:
             live.append(progress)
-            runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
+
+            def on_part(record, tally) -> None:
+                progress.update(record, tally)
+                page.poke()
+
+            runner = LotRunner(plan, bench, writer, settings, on_part=on_part,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
-                               way_out=stops.way_out, decide=lambda alarm: ask_pause(alarm, live))
+                               way_out=page.way_out(stops.way_out), decide=lambda alarm: ask_pause(alarm, live))
             tally = runner.run()
         with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:
@@ -168,6 +179,11 @@ def _say(console: Console, text: str, style: str | None = None) -> None:
     """Print text that may hold instrument replies and SCPI commands: no markup, no emoji
     (rich would turn ':ZERO:' into an emoji and '[...]' into styles)."""
     console.print(text, style=style, markup=False, emoji=False, highlight=False)
+
+
+def _say_whole(console: Console, text: str) -> None:
+    """A line never wrapped (an address to copy)."""
+    console.print(text, markup=False, emoji=False, highlight=False, soft_wrap=True)
 
 
 def _tell_resume(state: ResumeState, console: Console) -> None:
@@ -276,11 +292,12 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
                    "leakage:3@100:5uA (site 3 leaks 5 uA more per part from part 100). Repeatable.")
 @_RESUME
 @_MAX_FAULTS
+@view_option
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
             force: bool, stdf: bool, resume_dir: Path | None, max_faults: int,
-            fixture_faults: tuple[str, ...], outlier_share: float, pat_baseline: Path | None) -> None:
+            fixture_faults: tuple[str, ...], outlier_share: float, pat_baseline: Path | None, view: Any) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -323,7 +340,8 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         console.print(f"dry run: simulated bench on loopback, seed {settings.seed}, {settings.parts} parts, "
                       f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
-                     settings.parts, stdf, resume, max_faults, extra, seated=seat, pat_baseline=pat_baseline)
+                     settings.parts, stdf, resume, max_faults, extra, seated=seat, pat_baseline=pat_baseline,
+                     view=view)
         try:
             code = _run_lot(job, console, write_truth=sim.write_truth)
         finally:
@@ -407,9 +425,10 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @_MAX_FAULTS
 @click.option("--correlation", "correlation_dir", type=click.Path(path_type=Path), default=None,
               help="Start only if this `station correlate` folder passed for this station (recorded in lot.json).")
+@view_option
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
-        max_faults: int, correlation_dir: Path | None, pat_baseline: Path | None) -> None:
+        max_faults: int, correlation_dir: Path | None, pat_baseline: Path | None, view: Any) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal).
 
     Before wiring real instruments, read the Safety section of the README: outputs are live
@@ -436,7 +455,7 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
 
         extra["correlation"] = correlation_gate(correlation_dir, load_bench_config(bench_path).station, time.time())
     job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
-                 stdf, resume, max_faults, extra, pat_baseline=pat_baseline)
+                 stdf, resume, max_faults, extra, pat_baseline=pat_baseline, view=view)
     sys.exit(_run_lot(job, Console()))
 
 
@@ -489,8 +508,10 @@ def _register_datalog_tools() -> None:
     """Commands that read datalogs only: convert and verify, summary, rebin, limits."""
     from station.cli.datalog_commands import convert_command, verify_command
     from station.cli.review_commands import limits_group, rebin_command, summary_command
+    from station.cli.view_commands import view_command
 
-    for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
+    for command in (convert_command, verify_command, summary_command, rebin_command, limits_group,
+                    view_command):
         main.add_command(command)
     from station.cli.qualify_commands import correlate_command  # also adds limits set / guard
     main.add_command(correlate_command)

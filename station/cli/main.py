@@ -448,5 +448,16 @@ def _register_datalog_tools() -> None:
 
 _register_datalog_tools()
 
+
+def _register_store_tools() -> None:
+    """The fleet store (station/store): store init, publish, export."""
+    from station.cli.store_commands import publish_command, store_group
+
+    for command in (store_group, publish_command):
+        main.add_command(command)
+
+
+_register_store_tools()
+
 if __name__ == "__main__":
     main()

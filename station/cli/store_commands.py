@@ -1,0 +1,93 @@
+"""Fleet-store commands of `station`: store init, publish, export (docs/fleet-store.md).
+
+Registered on the main group by station/cli/main.py. The store is named by `--store URL` (a
+libpq URL or conninfo); its password, if the URL holds one, is never printed: messages name
+the store by host, port, database and user only.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+from station.datalog.folder import DatalogError
+from station.store.connect import StoreError, connect, shown
+
+STORE_HELP = ("PostgreSQL store: a URL (postgresql://user@host:5432/db) or conninfo (service=NAME); "
+              "the password may come from PGPASSWORD, ~/.pgpass or a service file.")
+
+
+class BadInput(click.ClickException):
+    exit_code = 2
+
+
+@click.group("store")
+def store_group() -> None:
+    """The fleet store (PostgreSQL): create or migrate its tables."""
+
+
+@store_group.command("init")
+@click.argument("url")
+def store_init(url: str) -> None:
+    """Create the store's tables in an existing database, or migrate them to this version."""
+    from station.store.schema import migrate
+
+    with connect(url, autocommit=True) as conn:
+        before, after = migrate(conn, shown(url))
+    if before == after:
+        click.echo(f"store {shown(url)}: schema version {after}, up to date")
+    else:
+        click.echo(f"store {shown(url)}: schema version {before} -> {after}")
+
+
+@click.command("publish")
+@click.argument("datalogs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--store", "url", required=True, help=STORE_HELP)
+@click.option("--batch-parts", type=click.IntRange(1, 1_000_000), default=2000, show_default=True,
+              help="Parts per transaction (a kill loses at most one batch; the next publish resumes).")
+def publish_command(datalogs: tuple[Path, ...], url: str, batch_parts: int) -> None:
+    """Copy datalog folders (finished or still running) into the store; safe to repeat."""
+    from station.store.publish import read_folder
+    from station.store.schema import require_current
+
+    console = Console(stderr=True)
+    for folder in datalogs:                # every folder checked before the first write
+        if not (folder / "lot.json").is_file():
+            raise BadInput(f"{folder}: not a datalog folder (no lot.json)")
+    # autocommit: each `conn.transaction()` of a batch is a real transaction, committed at its end.
+    with connect(url, autocommit=True) as conn:
+        require_current(conn, shown(url))
+        with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                      console=console, transient=True) as progress:
+            for folder in datalogs:
+                try:
+                    data = read_folder(folder)
+                except DatalogError as exc:
+                    raise BadInput(str(exc)) from None
+                task = progress.add_task(f"publishing {folder.name}", total=len(data.parts))
+                result = _publish(conn, url, data, batch_parts, lambda n, t=task: progress.update(t, completed=n))
+                progress.remove_task(task)
+                line = (f"{folder}: lot {result.lot_id} of station {result.station}: "
+                        f"{result.parts_added} part(s) added, {result.parts_before} already in the store")
+                if result.parts_replaced:
+                    line += f", {result.parts_replaced} replaced (the folder was rewritten by a resume)"
+                if result.held_back:
+                    line += f", {result.held_back} under test left for later"
+                click.echo(line)
+
+
+def _publish(conn, url: str, data, batch_parts: int, after_batch):
+    import psycopg
+
+    from station.store.connect import scrub
+    from station.store.publish import publish_folder
+
+    try:
+        return publish_folder(conn, data, batch_parts=batch_parts, after_batch=after_batch)
+    except psycopg.Error as exc:
+        raise StoreError(f"store {shown(url)}: {scrub(str(exc).strip().splitlines()[0], url)} "
+                         f"(publishing {data.folder}; the parts committed so far are kept, "
+                         "publish again to resume)") from None

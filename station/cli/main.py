@@ -451,9 +451,9 @@ _register_datalog_tools()
 
 def _register_store_tools() -> None:
     """The fleet store (station/store): store init, publish, export."""
-    from station.cli.store_commands import publish_command, store_group
+    from station.cli.store_commands import export_command, publish_command, store_group
 
-    for command in (store_group, publish_command):
+    for command in (store_group, publish_command, export_command):
         main.add_command(command)
 
 

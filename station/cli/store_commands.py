@@ -91,3 +91,96 @@ def _publish(conn, url: str, data, batch_parts: int, after_batch):
         raise StoreError(f"store {shown(url)}: {scrub(str(exc).strip().splitlines()[0], url)} "
                          f"(publishing {data.folder}; the parts committed so far are kept, "
                          "publish again to resume)") from None
+
+
+def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path | None, since: str | None,
+                     station: str | None, product: str | None, by: str | None, csv_file: Path | None,
+                     html_file: Path | None) -> None:
+    """`station summary --store URL` or `--parquet DIR`: the summary computed by the database."""
+    from station.review.console import print_summary
+    from station.review.export import write_csv
+    from station.store.summary_sql import Selection, parse_since, summarise_sql
+
+    if datalogs:
+        raise BadInput("give either datalog folders or --store/--parquet, not both")
+    if url is not None and parquet is not None:
+        raise BadInput("give either --store or --parquet, not both")
+    if html_file is not None:
+        raise BadInput("--html is made from folders only for now (its plots need every row): "
+                       "give the folders, or use --csv")
+    try:
+        since_t = parse_since(since) if since else None
+    except ValueError as exc:
+        raise BadInput(f"--since {exc}") from None
+    selection = Selection(since_t=since_t, station=station, product=product)
+    console = Console(width=None if Console().is_terminal else 160)
+    if url is not None:
+        import psycopg
+
+        from station.store.connect import scrub
+        from station.store.engines import postgres_engine
+        from station.store.schema import require_current
+
+        with connect(url, autocommit=True) as conn:
+            require_current(conn, shown(url))
+            try:
+                summary = summarise_sql(postgres_engine(conn), selection, by=by)
+            except psycopg.Error as exc:
+                raise StoreError(f"store {shown(url)}: {scrub(str(exc).strip().splitlines()[0], url)}") from None
+    else:
+        assert parquet is not None
+        from station.store.parquet import parquet_summary
+
+        summary = parquet_summary(parquet, selection, by=by)
+    print_summary(summary, console)
+    if csv_file is not None:
+        try:
+            write_csv(summary, csv_file)
+        except OSError as exc:
+            raise BadInput(f"cannot write: {exc}") from None
+        console.print(f"figures written to {csv_file}")
+
+
+@click.command("export")
+@click.argument("datalogs", nargs=-1, type=click.Path(path_type=Path))
+@click.option("--store", "url", default=None, help="Export every lot of this store (else the folders given).")
+@click.option("--to", "target", nargs=2, type=(click.Choice(["parquet"]), click.Path(file_okay=False, path_type=Path)),
+              required=True, metavar="parquet DIR", help="Write Parquet history into DIR (by product and month).")
+def export_command(datalogs: tuple[Path, ...], url: str | None, target: tuple[str, Path]) -> None:
+    """Long history: datalog folders or the whole store as Parquet, partitioned by product and month."""
+    from station.store.parquet import export, from_folder, from_store
+
+    out = target[1]
+    if bool(datalogs) == (url is not None):
+        raise BadInput("give either datalog folders or --store URL (one source)")
+    if out.exists() and not out.is_dir():
+        raise BadInput(f"--to parquet {out}: exists and is not a folder")
+    console = Console(stderr=True)
+    lots = 0
+
+    def told(lot, rows: int) -> None:
+        nonlocal lots
+        lots += 1
+        console.print(f"lot {lot.lot['lot_id']} of {lot.lot['station']}: {len(lot.parts)} parts, {rows} results",
+                      markup=False, highlight=False)
+
+    if url is None:
+        for folder in datalogs:
+            if not (folder / "lot.json").is_file():
+                raise BadInput(f"{folder}: not a datalog folder (no lot.json)")
+
+        def folders():
+            for folder in datalogs:
+                try:
+                    yield from_folder(folder)
+                except DatalogError as exc:
+                    raise BadInput(str(exc)) from None
+
+        rows = export(out, folders(), told)
+    else:
+        from station.store.schema import require_current
+
+        with connect(url, autocommit=True) as conn:
+            require_current(conn, shown(url))
+            rows = export(out, from_store(conn), told)
+    click.echo(f"{lots} lot(s), {rows} result rows written to {out}")

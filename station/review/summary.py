@@ -60,14 +60,21 @@ def summarise(logs: Datalogs, by: str | None = None) -> Summary:
     if by is not None:
         summary.by = by
         summary.by_table = yield_by(parts, group_key(logs, by), by, grade_order)
+    summary.notes += figure_notes(stats, summary.cpk)
+    return summary
+
+
+def figure_notes(stats: pd.DataFrame, cpk: pd.DataFrame) -> list[str]:
+    """Notes on how the parameter figures and Cpk were computed (also for the store's summary)."""
+    notes = []
     over = int(stats["over_range"].sum()) if not stats.empty else 0
     if over:
-        summary.notes.append(f"{over} over-range (non-finite) results are counted but left out "
-                             "of mean, sigma, percentiles and Cpk")
-    if not summary.cpk.empty and (summary.cpk["param"].isin(["cmrr", "psrr", "aol"])).any():
-        summary.notes.append("Cpk of dB figures takes their spread in dB as normal; CMRR and PSRR in dB "
-                             "are skewed (their V/V slopes are the Gaussian ones), so read those Cpk as rough")
-    return summary
+        notes.append(f"{over} over-range (non-finite) results are counted but left out "
+                     "of mean, sigma, percentiles and Cpk")
+    if not cpk.empty and (cpk["param"].isin(["cmrr", "psrr", "aol"])).any():
+        notes.append("Cpk of dB figures takes their spread in dB as normal; CMRR and PSRR in dB "
+                     "are skewed (their V/V slopes are the Gaussian ones), so read those Cpk as rough")
+    return notes
 
 
 def overview(logs: Datalogs) -> dict[str, float | int | str]:

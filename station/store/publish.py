@@ -225,19 +225,29 @@ def _num(value: float) -> float | None:
 def _copy_rows(conn: psycopg.Connection, lot_key: int, data: FolderData, start: int, end: int) -> None:
     parts = data.parts[(data.parts["PART_SEQ"] >= start) & (data.parts["PART_SEQ"] < end)]
     results = data.results[(data.results["PART_SEQ"] >= start) & (data.results["PART_SEQ"] < end)]
-    part_frame = pd.DataFrame({
-        "part_seq": parts["PART_SEQ"], "part_id": parts["PART_ID"], "head_num": parts["HEAD_NUM"],
-        "site_num": parts["SITE_NUM"], "hard_bin": parts["HARD_BIN"], "soft_bin": parts["SOFT_BIN"],
-        "grade": parts["GRADE"], "pass": parts["PASS"].astype("Int16"), "test_t": parts["TEST_T"],
-        "retest": parts["RETEST"], "fail_test": parts["FAIL_TEST"].astype("Int64"), "fault": parts["FAULT"],
-        "end_t": parts["END_T"]})
-    result_frame = pd.DataFrame({
-        "part_seq": results["PART_SEQ"], "test_num": results["TEST_NUM"], "test_txt": results["TEST_TXT"],
-        "param": results["PARAM"], "region": results["REGION"], "vcm": results["VCM"], "cond": results["COND"],
-        "result": results["RESULT"], "units": results["UNITS"], "lo_limit": results["LO_LIMIT"],
-        "hi_limit": results["HI_LIMIT"], "pass": results["PASS"].astype("Int16"), "grade": results["GRADE"]})
-    copy_frame(conn, "parts", lot_key, part_frame, PART_COPY, _PART_TEXT)
-    copy_frame(conn, "results", lot_key, result_frame, RESULT_COPY, _RESULT_TEXT)
+    copy_frame(conn, "parts", lot_key, part_frame(parts), PART_COPY, _PART_TEXT)
+    copy_frame(conn, "results", lot_key, result_frame(results), RESULT_COPY, _RESULT_TEXT)
+
+
+def part_frame(parts: pd.DataFrame) -> pd.DataFrame:
+    """parts.csv rows (as review.load reads them) under the store's column names."""
+    return pd.DataFrame({
+        "part_seq": parts["PART_SEQ"].astype("int32"), "part_id": parts["PART_ID"],
+        "head_num": parts["HEAD_NUM"], "site_num": parts["SITE_NUM"], "hard_bin": parts["HARD_BIN"],
+        "soft_bin": parts["SOFT_BIN"], "grade": parts["GRADE"], "pass": parts["PASS"].astype("Int16"),
+        "test_t": parts["TEST_T"], "retest": parts["RETEST"].astype("int16"),
+        "fail_test": parts["FAIL_TEST"].astype("Int64"), "fault": parts["FAULT"], "end_t": parts["END_T"]})
+
+
+def result_frame(results: pd.DataFrame) -> pd.DataFrame:
+    """results.csv rows (with PART_SEQ) under the store's column names."""
+    return pd.DataFrame({
+        "part_seq": results["PART_SEQ"].astype("int32"), "test_num": results["TEST_NUM"],
+        "test_txt": results["TEST_TXT"].astype(str), "param": results["PARAM"].astype(str),
+        "region": results["REGION"].astype(str), "vcm": results["VCM"], "cond": results["COND"],
+        "result": results["RESULT"], "units": results["UNITS"].astype(str), "lo_limit": results["LO_LIMIT"],
+        "hi_limit": results["HI_LIMIT"], "pass": results["PASS"].astype("Int16"),
+        "grade": results["GRADE"].astype(str)})
 
 
 def copy_frame(conn: psycopg.Connection, table: str, lot_key: int, frame: pd.DataFrame,

@@ -116,7 +116,7 @@ MIGRATIONS: tuple[str, ...] = (
         PRIMARY KEY (lot_key, seq)
     );
     CREATE VIEW lot_list AS
-        SELECT l.lot_key, s.name AS station, l.lot_id, l.product, l.start_t, l.end_t
+        SELECT l.lot_key, s.name AS station, l.lot_id, l.product, l.start_t, l.end_t, l.limits_sha256
         FROM lots l JOIN stations s USING (station_key);
     """,
 )

@@ -89,6 +89,7 @@ class LotJob:
     extra_header: dict = field(default_factory=dict)
     # Manual socket: told of every seat the operator confirms (the simulated bench seats a part).
     seated: Callable[[int, str | None], None] | None = None
+    store: str | None = None        # --store URL: the live sink publishes each part (never in lot.json)
 
 
 def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None = None) -> int:
@@ -121,12 +122,19 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
         raise click.ClickException(f"cannot open the bench: {exc}") from None
     if job.resume is not None:
         _tell_resume(job.resume, console)
+    sink = None
     try:
         settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
                                max_faults=job.max_faults, extra_header=job.extra_header)
         with LotProgress(console, job.expected_parts, job.lot_id) as progress:
             live.append(progress)
-            runner = LotRunner(plan, bench, writer, settings, on_part=progress.update,
+            on_part = progress.update
+            if job.store is not None:
+                from station.store.live import LiveSink
+
+                sink = LiveSink(job.store, job.out, lambda text: _say(console, text, "yellow")).start()
+                on_part = _both(progress.update, sink.part_logged)
+            runner = LotRunner(plan, bench, writer, settings, on_part=on_part,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
                                way_out=stops.way_out)
             tally = runner.run()
@@ -135,6 +143,8 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
                 _seal(job.out, job.stdf, write_truth, console)
     finally:
         bench.close()
+        if sink is not None:           # after the safe state and the seal: lot.json is final
+            _say(console, sink.close())
     for table in bin_summary(tally, plan.table):
         console.print(table)
     console.print(lot_line(tally))
@@ -151,6 +161,14 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
         _say(console, f"lot complete, but {safe_words}", "bold red")
         return EXIT_STOPPED
     return EXIT_OK
+
+
+def _both(first: Callable, second: Callable) -> Callable:
+    def call(*args: object) -> None:
+        first(*args)
+        second(*args)
+
+    return call
 
 
 def _ask_operator(text: str, live: list) -> str:
@@ -225,6 +243,14 @@ def _operator(value: str) -> str:
     return value.strip()
 
 
+def _store_url(url: str | None) -> None:
+    """A --store that is not a PostgreSQL URL is refused before anything is powered."""
+    if url is not None:
+        from station.store.connect import shown
+
+        shown(url)
+
+
 def _default_out(lot_id: str) -> Path:
     """datalogs/<lot id>, only for a lot id that is a plain folder name (never a path)."""
     if not is_safe_folder_name(lot_id):
@@ -236,6 +262,10 @@ def _default_out(lot_id: str) -> Path:
 _MAX_FAULTS = click.option(
     "--max-faults", type=click.IntRange(1, 1000), default=DEFAULT_MAX_FAULTS, show_default=True,
     help="Faulted attempts in a row (instrument failures) before the lot stops.")
+_STORE = click.option(
+    "--store", "store_url", default=None,
+    help="Also publish each part to this fleet store (PostgreSQL URL), from a background worker; "
+         "the lot never waits for it.")
 _RESUME = click.option(
     "--resume", "resume_dir", type=click.Path(path_type=Path), default=None,
     help="Continue the interrupted lot logged in this folder (parts logged are not tested again).")
@@ -265,16 +295,18 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 @_RESUME
 @_MAX_FAULTS
+@_STORE
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
-            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
+            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int, store_url: str | None) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
     console = Console()
     lot_id = _lot_id(lot_id)
     operator = _operator(operator)
+    _store_url(store_url)
     if lot_id is not None and out is None and resume_dir is None:
         _default_out(lot_id)          # refused before anything starts
     settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
@@ -304,7 +336,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         console.print(f"dry run: simulated bench on loopback, seed {settings.seed}, {settings.parts} parts, "
                       f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
-                     settings.parts, stdf, resume, max_faults, extra, seated=seat)
+                     settings.parts, stdf, resume, max_faults, extra, seated=seat, store=store_url)
         try:
             code = _run_lot(job, console, write_truth=sim.write_truth)
         finally:
@@ -380,12 +412,14 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 @_RESUME
 @_MAX_FAULTS
+@_STORE
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
-        max_faults: int) -> None:
+        max_faults: int, store_url: str | None) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal)."""
     lot_id = _lot_id(lot_id)
     operator = _operator(operator)
+    _store_url(store_url)
     resume = None
     if resume_dir is not None:
         resume = _inspect_resume(resume_dir, out, force, "run", sequence_path, limits_path, lot_id)
@@ -398,7 +432,7 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
     if out is None:
         raise Refused("--out is required (the datalog folder), unless --resume continues a lot")
     job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
-                 stdf, resume, max_faults)
+                 stdf, resume, max_faults, store=store_url)
     sys.exit(_run_lot(job, Console()))
 
 

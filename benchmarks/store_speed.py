@@ -243,13 +243,50 @@ def store_figures(work: Path, ingest_parts: int, store_rows: int, parquet_rows: 
     figures: dict = {}
     try:
         with psycopg.connect(server.url, autocommit=True) as conn:
-            for name in ("bench_ingest", "bench_summary"):
+            for name in ("bench_ingest", "bench_summary", "bench_live"):
                 conn.execute(f"DROP DATABASE IF EXISTS {name}")
                 conn.execute(f"CREATE DATABASE {name}")
         base = server.url.rsplit("/", 1)[0]
         figures.update(ingest(base + "/bench_ingest", work, ingest_parts))
         figures.update(store_summary(base + "/bench_summary", store_rows, repeats))
+        figures.update(live_sink(base + "/bench_live", work, parts=16 if repeats == 1 else 32))
     finally:
         server.close()
     figures.update(parquet_summary(work, parquet_rows, repeats))
     return figures
+
+
+def _lot_test_time(work: Path, name: str, parts: int, store: str | None) -> float:
+    """Mean handler-index test time (TEST_T, ms) of a dry-run lot, with or without the sink."""
+    import sys
+
+    out = work / name
+    command = [sys.executable, "-m", "station.cli", "dry-run", "--parts", str(parts), "--seed", "5",
+               "--out", str(out), "--lot", name.upper(), "--force"]
+    if store is not None:
+        command += ["--store", store]
+    subprocess.run(command, capture_output=True, text=True, check=True, cwd=ROOT,
+                   env={**os.environ, "PYTHONPATH": str(ROOT)})
+    frame = pd.read_csv(out / "parts.csv")
+    return float(frame.drop_duplicates(["TEST_T", "END_T"])["TEST_T"].iloc[1:].mean())
+
+
+def live_sink(url: str, work: Path, parts: int) -> dict:
+    """Test time of the same simulated lot (speed 1) with no store, with the sink publishing,
+    and with the sink's store down (a loopback port nobody listens on: connection refused)."""
+    import socket
+
+    from station.store.connect import connect
+    from station.store.schema import migrate
+
+    with connect(url, autocommit=True) as conn:
+        migrate(conn, "bench")
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        dead = f"postgresql://station@127.0.0.1:{s.getsockname()[1]}/none"
+    plain = _lot_test_time(work, "plain", parts, None)
+    up = _lot_test_time(work, "up", parts, url)
+    down = _lot_test_time(work, "down", parts, dead)
+    return {"live_sink_index_ms_no_store": plain, "live_sink_index_ms_store_up": up,
+            "live_sink_index_ms_store_down": down, "live_sink_ratio_store_down": down / plain,
+            "live_sink_ratio_store_up": up / plain}

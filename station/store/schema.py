@@ -119,6 +119,12 @@ MIGRATIONS: tuple[str, ...] = (
         SELECT l.lot_key, s.name AS station, l.lot_id, l.product, l.start_t, l.end_t, l.limits_sha256
         FROM lots l JOIN stations s USING (station_key);
     """,
+    # 2: the summary's statistics read results in (param, region, value) order from this index
+    # alone (an index-only scan gives the percentiles' groups presorted): 10 M rows in a few
+    # seconds instead of a full sort. It costs some COPY rate.
+    """
+    CREATE INDEX results_by_parameter ON results (param, region, result) INCLUDE (lot_key, units);
+    """,
 )
 
 CODE_VERSION = len(MIGRATIONS)

@@ -96,22 +96,32 @@ def _ctes(sel: Selection) -> tuple[str, list]:
     return sql, params
 
 
-def _results_cte(engine: Engine, sel: Selection) -> str:
-    join = ("JOIN sel_parts p ON r.lot_key = p.lot_key AND r.part_seq = p.part_seq" if sel.since_t is not None
-            else "JOIN sel_lots l ON r.lot_key = l.lot_key")
+def _results_cte(engine: Engine, sel: Selection, lot_keys: list[int] | None) -> tuple[str, list]:
+    """sel_results, and its parameters. Without --since the lots are named by their keys (or,
+    with no filter at all, not named), so the database can read (param, region, result) in
+    order from the results index alone (schema migration 2) instead of sorting every row."""
+    params: list = []
+    if sel.since_t is not None:
+        where = "EXISTS (SELECT 1 FROM sel_parts p WHERE p.lot_key = r.lot_key AND p.part_seq = r.part_seq)"
+    elif lot_keys is None:
+        where = "true"
+    else:
+        where = f"r.lot_key IN ({', '.join('%s' for _ in lot_keys) or 'NULL'})"
+        params = list(lot_keys)
     raw = ", ".join("%s" for _ in RAW_PARAMS)
     return f""",
     sel_results AS (SELECT r.param, r.region, r.units, r.result,
                            CASE WHEN {engine.finite} THEN r.result END AS fin
-                    FROM results r {join} WHERE r.param NOT IN ({raw}))"""
+                    FROM results r WHERE {where} AND r.param NOT IN ({raw}))""", params + sorted(RAW_PARAMS)
 
 
 def _query(engine: Engine, sel: Selection, body: str, results: bool = False,
-           extra: list | None = None) -> pd.DataFrame:
+           extra: list | None = None, lot_keys: list[int] | None = None) -> pd.DataFrame:
     ctes, params = _ctes(sel)
     if results:
-        ctes += _results_cte(engine, sel)
-        params = params + sorted(RAW_PARAMS)
+        text, more = _results_cte(engine, sel, lot_keys)
+        ctes += text
+        params = params + more
     return engine.run(f"{ctes}\n{body}", params + list(extra or []))
 
 
@@ -155,7 +165,8 @@ def summarise_sql(engine: Engine, sel: Selection, by: str | None = None,
     pct = ", ".join(f"percentile_cont({p / 100}) WITHIN GROUP (ORDER BY fin) AS p{p}" for p in PERCENTILES)
     stats = q(f"""SELECT param, region, min(units) AS units, count(*) AS count, count(fin) AS finite_count,
                          avg(fin) AS mean, stddev_samp(fin) AS sigma, min(fin) AS min, max(fin) AS max, {pct}
-                  FROM sel_results GROUP BY param, region""", results=True)
+                  FROM sel_results GROUP BY param, region""", results=True,
+              lot_keys=None if sel == Selection() else [int(k) for k in lots["lot_key"]])
     limit_hashes = q("""SELECT s.lot_key, s.limits_sha256 AS sha256, f.content FROM sel_lots s
                         LEFT JOIN applied_files f ON f.sha256 = s.limits_sha256 ORDER BY s.lot_key""")
 

@@ -47,3 +47,22 @@ def test_publish_to_an_empty_database_says_to_init(store_url: str, tmp_path) -> 
     folder = make_datalog(tmp_path / "lot", None)
     result = CliRunner().invoke(main, ["publish", str(folder), "--store", store_url])
     assert result.exit_code == 2 and "run: station store init URL" in result.output
+
+
+def test_an_older_store_is_migrated_and_refused_until_then(store_url: str, tmp_path) -> None:
+    from station.store.schema import MIGRATIONS
+    from tests.support.review_datalogs import make_datalog
+
+    with psycopg.connect(store_url) as conn:       # a store made by a station of schema version 1
+        conn.execute(MIGRATIONS[0])
+        conn.execute("INSERT INTO store_version (version, software) VALUES (1, 'older station')")
+    folder = make_datalog(tmp_path / "lot", None)
+    runner = CliRunner()
+    before = runner.invoke(main, ["publish", str(folder), "--store", store_url])
+    assert before.exit_code == 2 and f"this station needs {CODE_VERSION}" in before.output
+    init = runner.invoke(main, ["store", "init", store_url])
+    assert init.exit_code == 0 and f"schema version 1 -> {CODE_VERSION}" in init.output
+    assert runner.invoke(main, ["publish", str(folder), "--store", store_url]).exit_code == 0
+    with psycopg.connect(store_url) as conn:
+        index = conn.execute("SELECT count(*) FROM pg_indexes WHERE indexname = 'results_by_parameter'").fetchone()
+    assert index == (1,)

@@ -176,12 +176,36 @@ def _median(values) -> float:
     return statistics.median(values) if values else math.nan
 
 
+def _store_main(args: argparse.Namespace) -> dict:
+    """`--store`: publish rate, SQL summary of a 10 M-row store, DuckDB summary of Parquet history."""
+    from benchmarks.store_speed import store_figures
+
+    quick = args.quick or args.smoke
+    with tempfile.TemporaryDirectory(prefix="ampscreen-store-bench-") as temp:
+        figures: dict = {"mode": "store quick" if quick else "store", "machine": machine_info()}
+        figures.update(store_figures(Path(temp), ingest_parts=2_000 if quick else 20_000,
+                                     store_rows=1_000_000 if quick else 10_000_000,
+                                     parquet_rows=10_000_000 if quick else args.parquet_rows,
+                                     repeats=1 if quick else 3))
+    for key, value in figures.items():
+        print(f"{key:40s} {value:.4g}" if isinstance(value, float) else f"{key:40s} {value}")
+    if args.json:
+        args.json.write_text(json.dumps(figures, indent=2, allow_nan=True), encoding="utf-8")
+    return figures
+
+
 def main(argv: list[str] | None = None) -> dict:
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__)
     parser.add_argument("--quick", action="store_true", help="fewer parts and repetitions (under two minutes)")
     parser.add_argument("--smoke", action="store_true", help=argparse.SUPPRESS)  # tiny sizes, for the test suite
     parser.add_argument("--json", type=Path, help="also write the figures here as JSON")
+    parser.add_argument("--store", action="store_true",
+                        help="only the fleet-store figures (needs PostgreSQL; minutes; see benchmarks/README.md)")
+    parser.add_argument("--parquet-rows", type=int, default=100_000_000,
+                        help="with --store: result rows of the synthetic Parquet history")
     args = parser.parse_args(argv)
+    if args.store:
+        return _store_main(args)
     sizes = SIZES["smoke" if args.smoke else "quick" if args.quick else "full"]
     with tempfile.TemporaryDirectory(prefix="ampscreen-bench-") as temp:
         work = Path(temp)

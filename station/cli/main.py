@@ -94,6 +94,7 @@ class LotJob:
     seated: Callable[[int, str | None], None] | None = None
     pat_baseline: Path | None = None   # dynamic PAT limits from this earlier lot
     view: Any = None               # a ViewAddress: serve the live page (station/cli/view_commands.py)
+    store: str | None = None        # --store URL: the live sink publishes each part (never in lot.json)
 
 
 def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None = None) -> int:
@@ -128,6 +129,7 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
         raise click.ClickException(f"cannot open the bench: {exc}") from None
     if job.resume is not None:
         _tell_resume(job.resume, console)
+    sink = None
     try:
         settings = LotSettings(lot_id=job.lot_id, operator=job.operator, mode=job.mode,
                                max_faults=job.max_faults, extra_header=job.extra_header,
@@ -140,6 +142,11 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
                 progress.update(record, tally)
                 page.poke()
 
+            if job.store is not None:
+                from station.store.live import LiveSink
+
+                sink = LiveSink(job.store, job.out, lambda text: _say(console, text, "yellow")).start()
+                on_part = _both(on_part, sink.part_logged)
             runner = LotRunner(plan, bench, writer, settings, on_part=on_part,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
                                way_out=page.way_out(stops.way_out), decide=lambda alarm: ask_pause(alarm, live))
@@ -149,6 +156,8 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
                 _seal(job.out, job.stdf, write_truth, console)
     finally:
         bench.close()
+        if sink is not None:           # after the safe state and the seal: lot.json is final
+            _say(console, sink.close())
     for table in bin_summary(tally, plan.table):
         console.print(table)
     console.print(lot_line(tally))
@@ -165,6 +174,14 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
         _say(console, f"lot complete, but {safe_words}", "bold red")
         return EXIT_STOPPED
     return EXIT_OK
+
+
+def _both(first: Callable, second: Callable) -> Callable:
+    def call(*args: object) -> None:
+        first(*args)
+        second(*args)
+
+    return call
 
 
 def _ask_operator(text: str, live: list) -> str:
@@ -244,6 +261,14 @@ def _operator(value: str) -> str:
     return value.strip()
 
 
+def _store_url(url: str | None) -> None:
+    """A --store that is not a PostgreSQL URL is refused before anything is powered."""
+    if url is not None:
+        from station.store.connect import shown
+
+        shown(url)
+
+
 def _default_out(lot_id: str) -> Path:
     """datalogs/<lot id>, only for a lot id that is a plain folder name (never a path)."""
     if not is_safe_folder_name(lot_id):
@@ -255,6 +280,10 @@ def _default_out(lot_id: str) -> Path:
 _MAX_FAULTS = click.option(
     "--max-faults", type=click.IntRange(1, 1000), default=DEFAULT_MAX_FAULTS, show_default=True,
     help="Faulted attempts in a row (instrument failures) before the lot stops.")
+_STORE = click.option(
+    "--store", "store_url", default=None,
+    help="Also publish each part to this fleet store (PostgreSQL URL), from a background worker; "
+         "the lot never waits for it.")
 _RESUME = click.option(
     "--resume", "resume_dir", type=click.Path(path_type=Path), default=None,
     help="Continue the interrupted lot logged in this folder (parts logged are not tested again).")
@@ -293,17 +322,20 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @_RESUME
 @_MAX_FAULTS
 @view_option
+@_STORE
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
             force: bool, stdf: bool, resume_dir: Path | None, max_faults: int,
-            fixture_faults: tuple[str, ...], outlier_share: float, pat_baseline: Path | None, view: Any) -> None:
+            fixture_faults: tuple[str, ...], outlier_share: float, pat_baseline: Path | None, view: Any,
+            store_url: str | None) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
     console = Console()
     lot_id = _lot_id(lot_id)
     operator = _operator(operator)
+    _store_url(store_url)
     if lot_id is not None and out is None and resume_dir is None:
         _default_out(lot_id)          # refused before anything starts
     from station.cli.screen_commands import fixture_fault_options
@@ -341,7 +373,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
                       f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
                      settings.parts, stdf, resume, max_faults, extra, seated=seat, pat_baseline=pat_baseline,
-                     view=view)
+                     view=view, store=store_url)
         try:
             code = _run_lot(job, console, write_truth=sim.write_truth)
         finally:
@@ -426,9 +458,11 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--correlation", "correlation_dir", type=click.Path(path_type=Path), default=None,
               help="Start only if this `station correlate` folder passed for this station (recorded in lot.json).")
 @view_option
+@_STORE
 def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | None, operator: str,
         out: Path | None, expected_parts: int | None, force: bool, stdf: bool, resume_dir: Path | None,
-        max_faults: int, correlation_dir: Path | None, pat_baseline: Path | None, view: Any) -> None:
+        max_faults: int, correlation_dir: Path | None, pat_baseline: Path | None, view: Any,
+        store_url: str | None) -> None:
     """Screen a lot on a bench (real instruments, or `station sim serve` in another terminal).
 
     Before wiring real instruments, read the Safety section of the README: outputs are live
@@ -437,6 +471,7 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
     off on every way out, but it is no substitute for hardware interlocks or fuses."""
     lot_id = _lot_id(lot_id)
     operator = _operator(operator)
+    _store_url(store_url)
     resume = None
     if resume_dir is not None:
         resume = _inspect_resume(resume_dir, out, force, "run", sequence_path, limits_path, lot_id)
@@ -455,7 +490,7 @@ def run(bench_path: Path, sequence_path: Path, limits_path: Path, lot_id: str | 
 
         extra["correlation"] = correlation_gate(correlation_dir, load_bench_config(bench_path).station, time.time())
     job = LotJob(bench_path, sequence_path, limits_path, out, lot_id, operator, "run", force, expected_parts,
-                 stdf, resume, max_faults, extra, pat_baseline=pat_baseline, view=view)
+                 stdf, resume, max_faults, extra, pat_baseline=pat_baseline, view=view, store=store_url)
     sys.exit(_run_lot(job, Console()))
 
 
@@ -523,6 +558,17 @@ def _register_datalog_tools() -> None:
 
 
 _register_datalog_tools()
+
+
+def _register_store_tools() -> None:
+    """The fleet store (station/store): store init, publish, export."""
+    from station.cli.store_commands import export_command, publish_command, store_group
+
+    for command in (store_group, publish_command, export_command):
+        main.add_command(command)
+
+
+_register_store_tools()
 
 if __name__ == "__main__":
     main()

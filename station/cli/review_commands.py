@@ -67,22 +67,39 @@ def _refuse_unwritable(option: str, target: Path | None) -> None:
 # ---- summary ----------------------------------------------------------------------------------
 
 @click.command("summary")
-@click.argument("datalogs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.argument("datalogs", nargs=-1, required=False, type=click.Path(path_type=Path))
 @click.option("--by", type=click.Choice(["site", "lot", "station", "hour"]), default=None,
               help="Add a yield table grouped this way.")
 @click.option("--csv", "csv_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write every figure to one tidy CSV (a 'section' column says which table).")
 @click.option("--html", "html_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write a self-contained HTML report with plots.")
+@click.option("--store", "store_url", default=None,
+              help="Summarise the fleet store (PostgreSQL URL) instead of folders, in SQL.")
+@click.option("--parquet", "parquet_dir", type=click.Path(file_okay=False, path_type=Path), default=None,
+              help="Summarise Parquet history (station export) in place with DuckDB.")
+@click.option("--since", default=None, help="With --store/--parquet: parts ended in the last 8h, 30m, 2d...")
+@click.option("--station", "station_name", default=None, help="With --store/--parquet: this station only.")
+@click.option("--product", default=None, help="With --store/--parquet: this product only.")
 def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path | None,
-                    html_file: Path | None) -> None:
-    """End-of-shift summary of one or more datalog folders: yield, bins, sites, Cpk."""
+                    html_file: Path | None, store_url: str | None, parquet_dir: Path | None,
+                    since: str | None, station_name: str | None, product: str | None) -> None:
+    """End-of-shift summary of datalog folders, the fleet store or Parquet history: yield, bins, sites, Cpk."""
     from station.review.console import print_summary
     from station.review.export import write_csv
     from station.review.summary import summarise
 
     for option, target in (("--csv", csv_file), ("--html", html_file)):
         _refuse_unwritable(option, target)   # before the work, not after printing it all
+    if store_url is not None or parquet_dir is not None:
+        from station.cli.store_commands import database_summary
+
+        database_summary(datalogs, store_url, parquet_dir, since, station_name, product, by, csv_file, html_file)
+        return
+    if not datalogs:
+        raise BadInput("give one or more datalog folders, or --store URL, or --parquet DIR")
+    if since or station_name or product:
+        raise BadInput("--since, --station and --product select from --store or --parquet (give one)")
     console = _console()
     logs = _read(datalogs, console)
     summary = summarise(logs, by=by)

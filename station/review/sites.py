@@ -85,13 +85,21 @@ def site_table(parts: pd.DataFrame) -> tuple[pd.DataFrame, SiteTest]:
     counts = decided.groupby("SITE_NUM")["PASS"].agg(good="sum", decided="size")
     tested = parts.groupby("SITE_NUM").size().rename("tested")
     table = pd.concat([tested, counts], axis=1).fillna(0)
+    table = table.reset_index().rename(columns={"SITE_NUM": "site"})
+    return site_table_from_counts(table)
+
+
+def site_table_from_counts(counts: pd.DataFrame) -> tuple[pd.DataFrame, SiteTest]:
+    """The same from counts per site (columns site, tested, good, decided; sorted by site), as a
+    database computes them (station/store)."""
+    table = counts.set_index("site")[["tested", "good", "decided"]].astype(float)
     table["good"] = table["good"].astype(int)
     table["failed"] = (table["decided"] - table["good"]).astype(int)
     table["faults"] = (table["tested"] - table["decided"]).astype(int)
     table["yield"] = table["good"] / table["decided"].where(table["decided"] > 0)
     table["p_vs_rest"] = site_vs_rest(table["good"].to_numpy(), table["failed"].to_numpy())
     table["differs"] = flag_sites(table["good"].to_numpy(), table["failed"].to_numpy())
-    table = table.drop(columns="decided").reset_index().rename(columns={"SITE_NUM": "site"})
+    table = table.drop(columns="decided").reset_index()
     test = site_difference(table["good"].to_numpy(), table["failed"].to_numpy())
     return table, test
 

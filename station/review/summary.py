@@ -63,15 +63,22 @@ def summarise(logs: Datalogs, by: str | None = None) -> Summary:
     if by is not None:
         summary.by = by
         summary.by_table = yield_by(parts, group_key(logs, by), by, grade_order)
+    summary.notes += figure_notes(stats, summary.cpk)
+    return summary
+
+
+def figure_notes(stats: pd.DataFrame, cpk: pd.DataFrame) -> list[str]:
+    """Notes on how the parameter figures and Cpk were computed (also for the store's summary)."""
+    notes = []
     over = int(stats["over_range"].sum()) if not stats.empty else 0
     if over:
-        summary.notes.append(f"{over} over-range (non-finite) results are counted but left out "
-                             "of mean, sigma, percentiles and Cpk")
-    if not summary.cpk.empty and (summary.cpk["basis"] == "slope").any():
-        summary.notes.append("Cpk of CMRR and PSRR is on their slope in V/V: a limit 'L dB' is the window "
-                             "|slope| <= 10^(-L/20), and mean and sigma are the slope's (dB values are skewed); "
-                             "AOL's Cpk is on dB")
-    return summary
+        notes.append(f"{over} over-range (non-finite) results are counted but left out "
+                     "of mean, sigma, percentiles and Cpk")
+    if not cpk.empty and "basis" in cpk and (cpk["basis"] == "slope").any():
+        notes.append("Cpk of CMRR and PSRR is on their slope in V/V: a limit 'L dB' is the window "
+                     "|slope| <= 10^(-L/20), and mean and sigma are the slope's (dB values are skewed); "
+                     "AOL's Cpk is on dB")
+    return notes
 
 
 def overview(logs: Datalogs) -> dict[str, float | int | str]:

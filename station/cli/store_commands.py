@@ -1,0 +1,186 @@
+"""Fleet-store commands of `station`: store init, publish, export (docs/fleet-store.md).
+
+Registered on the main group by station/cli/main.py. The store is named by `--store URL` (a
+libpq URL or conninfo); its password, if the URL holds one, is never printed: messages name
+the store by host, port, database and user only.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+from station.datalog.folder import DatalogError
+from station.store.connect import StoreError, connect, shown
+
+STORE_HELP = ("PostgreSQL store: a URL (postgresql://user@host:5432/db) or conninfo (service=NAME); "
+              "the password may come from PGPASSWORD, ~/.pgpass or a service file.")
+
+
+class BadInput(click.ClickException):
+    exit_code = 2
+
+
+@click.group("store")
+def store_group() -> None:
+    """The fleet store (PostgreSQL): create or migrate its tables."""
+
+
+@store_group.command("init")
+@click.argument("url")
+def store_init(url: str) -> None:
+    """Create the store's tables in an existing database, or migrate them to this version."""
+    from station.store.schema import migrate
+
+    with connect(url, autocommit=True) as conn:
+        before, after = migrate(conn, shown(url))
+    if before == after:
+        click.echo(f"store {shown(url)}: schema version {after}, up to date")
+    else:
+        click.echo(f"store {shown(url)}: schema version {before} -> {after}")
+
+
+@click.command("publish")
+@click.argument("datalogs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--store", "url", required=True, help=STORE_HELP)
+@click.option("--batch-parts", type=click.IntRange(1, 1_000_000), default=2000, show_default=True,
+              help="Parts per transaction (a kill loses at most one batch; the next publish resumes).")
+def publish_command(datalogs: tuple[Path, ...], url: str, batch_parts: int) -> None:
+    """Copy datalog folders (finished or still running) into the store; safe to repeat."""
+    from station.store.publish import read_folder
+    from station.store.schema import require_current
+
+    console = Console(stderr=True)
+    for folder in datalogs:                # every folder checked before the first write
+        if not (folder / "lot.json").is_file():
+            raise BadInput(f"{folder}: not a datalog folder (no lot.json)")
+    # autocommit: each `conn.transaction()` of a batch is a real transaction, committed at its end.
+    with connect(url, autocommit=True) as conn:
+        require_current(conn, shown(url))
+        with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                      console=console, transient=True) as progress:
+            for folder in datalogs:
+                try:
+                    data = read_folder(folder)
+                except DatalogError as exc:
+                    raise BadInput(str(exc)) from None
+                task = progress.add_task(f"publishing {folder.name}", total=len(data.parts))
+                result = _publish(conn, url, data, batch_parts, lambda n, t=task: progress.update(t, completed=n))
+                progress.remove_task(task)
+                line = (f"{folder}: lot {result.lot_id} of station {result.station}: "
+                        f"{result.parts_added} part(s) added, {result.parts_before} already in the store")
+                if result.parts_replaced:
+                    line += f", {result.parts_replaced} replaced (the folder was rewritten by a resume)"
+                if result.held_back:
+                    line += f", {result.held_back} under test left for later"
+                click.echo(line)
+
+
+def _publish(conn, url: str, data, batch_parts: int, after_batch):
+    import psycopg
+
+    from station.store.connect import scrub
+    from station.store.publish import publish_folder
+
+    try:
+        return publish_folder(conn, data, batch_parts=batch_parts, after_batch=after_batch)
+    except psycopg.Error as exc:
+        raise StoreError(f"store {shown(url)}: {scrub(str(exc).strip().splitlines()[0], url)} "
+                         f"(publishing {data.folder}; the parts committed so far are kept, "
+                         "publish again to resume)") from None
+
+
+def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path | None, since: str | None,
+                     station: str | None, product: str | None, by: str | None, csv_file: Path | None,
+                     html_file: Path | None) -> None:
+    """`station summary --store URL` or `--parquet DIR`: the summary computed by the database."""
+    from station.review.console import print_summary
+    from station.review.export import write_csv
+    from station.store.summary_sql import Selection, parse_since, summarise_sql
+
+    if datalogs:
+        raise BadInput("give either datalog folders or --store/--parquet, not both")
+    if url is not None and parquet is not None:
+        raise BadInput("give either --store or --parquet, not both")
+    if html_file is not None:
+        raise BadInput("--html is made from folders only for now (its plots need every row): "
+                       "give the folders, or use --csv")
+    try:
+        since_t = parse_since(since) if since else None
+    except ValueError as exc:
+        raise BadInput(f"--since {exc}") from None
+    selection = Selection(since_t=since_t, station=station, product=product)
+    console = Console(width=None if Console().is_terminal else 160)
+    if url is not None:
+        import psycopg
+
+        from station.store.connect import scrub
+        from station.store.engines import postgres_engine
+        from station.store.schema import require_current
+
+        with connect(url, autocommit=True) as conn:
+            require_current(conn, shown(url))
+            try:
+                summary = summarise_sql(postgres_engine(conn), selection, by=by)
+            except psycopg.Error as exc:
+                raise StoreError(f"store {shown(url)}: {scrub(str(exc).strip().splitlines()[0], url)}") from None
+    else:
+        assert parquet is not None
+        from station.store.parquet import parquet_summary
+
+        summary = parquet_summary(parquet, selection, by=by)
+    print_summary(summary, console)
+    if csv_file is not None:
+        try:
+            write_csv(summary, csv_file)
+        except OSError as exc:
+            raise BadInput(f"cannot write: {exc}") from None
+        console.print(f"figures written to {csv_file}")
+
+
+@click.command("export")
+@click.argument("datalogs", nargs=-1, type=click.Path(path_type=Path))
+@click.option("--store", "url", default=None, help="Export every lot of this store (else the folders given).")
+@click.option("--to", "target", nargs=2, type=(click.Choice(["parquet"]), click.Path(file_okay=False, path_type=Path)),
+              required=True, metavar="parquet DIR", help="Write Parquet history into DIR (by product and month).")
+def export_command(datalogs: tuple[Path, ...], url: str | None, target: tuple[str, Path]) -> None:
+    """Long history: datalog folders or the whole store as Parquet, partitioned by product and month."""
+    from station.store.parquet import export, from_folder, from_store
+
+    out = target[1]
+    if bool(datalogs) == (url is not None):
+        raise BadInput("give either datalog folders or --store URL (one source)")
+    if out.exists() and not out.is_dir():
+        raise BadInput(f"--to parquet {out}: exists and is not a folder")
+    console = Console(stderr=True)
+    lots = 0
+
+    def told(lot, rows: int) -> None:
+        nonlocal lots
+        lots += 1
+        console.print(f"lot {lot.lot['lot_id']} of {lot.lot['station']}: {len(lot.parts)} parts, {rows} results",
+                      markup=False, highlight=False)
+
+    if url is None:
+        for folder in datalogs:
+            if not (folder / "lot.json").is_file():
+                raise BadInput(f"{folder}: not a datalog folder (no lot.json)")
+
+        def folders():
+            for folder in datalogs:
+                try:
+                    yield from_folder(folder)
+                except DatalogError as exc:
+                    raise BadInput(str(exc)) from None
+
+        rows = export(out, folders(), told)
+    else:
+        from station.store.schema import require_current
+
+        with connect(url, autocommit=True) as conn:
+            require_current(conn, shown(url))
+            rows = export(out, from_store(conn), told)
+    click.echo(f"{lots} lot(s), {rows} result rows written to {out}")

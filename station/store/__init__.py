@@ -1,0 +1,1 @@
+"""The fleet store: many stations' datalogs in one PostgreSQL database (docs/fleet-store.md)."""

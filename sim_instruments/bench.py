@@ -8,7 +8,7 @@ from __future__ import annotations
 import csv
 import dataclasses
 import threading
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from sim_instruments.clock import ModelClock
@@ -16,6 +16,7 @@ from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
 from sim_instruments.force import ForceSource
 from sim_instruments.handler import Handler
+from sim_instruments.hislip_server import HislipServer
 from sim_instruments.instrument import Instrument
 from sim_instruments.model import DEFAULT_COMPLIANCE_A, BenchModel, FixtureSpec
 from sim_instruments.population import TRUTH_COLUMNS, PartTruth, make_population, truth_row
@@ -25,6 +26,11 @@ from sim_instruments.switch import FixtureSwitch
 
 DRIVERS = {"supply": "scpi-dual-supply", "force": "scpi-force-source", "dmm": "scpi-dmm",
            "switch": "scpi-fixture-switch", "handler": "scpi-handler"}
+
+# How each simulated instrument can be reached: a raw SCPI socket (newline-terminated
+# messages, resource ...::PORT::SOCKET) or HiSLIP (END-terminated messages over two channels,
+# resource ...::hislip0,PORT::INSTR).
+TRANSPORTS = ("socket", "hislip")
 
 __all__ = ["SimBench", "SimSettings", "CommandRecord", "FaultSettings", "PartTruth"]
 
@@ -50,6 +56,11 @@ class SimSettings:
     # For resuming a lot: the handler starts after the first `skip_parts` parts of the lot,
     # as a real handler would after those were sorted in an earlier session.
     skip_parts: int = 0
+    transport: str = "socket"  # every instrument's transport, one of TRANSPORTS ...
+    transports: dict[str, str] = field(default_factory=dict)  # ... unless named here per role
+
+    def transport_of(self, role: str) -> str:
+        return self.transports.get(role, self.transport)
 
 
 class SimBench:
@@ -60,6 +71,9 @@ class SimBench:
             raise ValueError("sites must be 1 to 4")
         if settings.line_hz not in (50.0, 60.0):
             raise ValueError("line_hz must be 50 or 60")
+        for transport in (settings.transport, *settings.transports.values()):
+            if transport not in TRANSPORTS:
+                raise ValueError(f"unknown transport {transport!r}: use {' or '.join(TRANSPORTS)}")
         self.settings = settings
         self.clock = ModelClock(settings.speed)
         self.parts = make_population(settings.seed, settings.parts, settings.defects)
@@ -72,6 +86,9 @@ class SimBench:
         self.instruments: dict[str, Instrument] = {}
         self._servers: list[InstrumentServer] = []
         self._build()
+        unknown = sorted(set(settings.transports) - set(self.instruments))
+        if unknown:
+            raise ValueError(f"no instrument {unknown[0]!r} on this bench: {', '.join(self.instruments)}")
 
     # --- construction --------------------------------------------------------------------
     def _common(self, role: str, number: int) -> dict:
@@ -101,10 +118,16 @@ class SimBench:
         try:
             for i, (role, instrument) in enumerate(self.instruments.items()):
                 port = self.settings.base_port + i if self.settings.base_port else 0
-                server = InstrumentServer(instrument, self._faults[role], self.clock,
+                if self.settings.transport_of(role) == "hislip":
+                    hislip = HislipServer(instrument, self._faults[role], self.clock,
                                           self.settings.host, port, log)
-                self._servers.append(server)
-                self.resources[role] = f"TCPIP0::{server.host}::{server.port}::SOCKET"
+                    self._servers.append(hislip)
+                    self.resources[role] = hislip.resource
+                else:
+                    server = InstrumentServer(instrument, self._faults[role], self.clock,
+                                              self.settings.host, port, log)
+                    self._servers.append(server)
+                    self.resources[role] = f"TCPIP0::{server.host}::{server.port}::SOCKET"
         except OSError:
             self.stop()
             raise

@@ -7,7 +7,7 @@ import threading
 from collections.abc import Callable
 from pathlib import Path
 
-from sim_instruments.bench import SimBench, SimSettings
+from sim_instruments.bench import TRANSPORTS, SimBench, SimSettings
 
 FAULT_KINDS = ("latency", "timeout", "drop", "garbage", "error")
 
@@ -25,6 +25,22 @@ def parse_fault_option(text: str) -> tuple[str, str, float]:
     if kind not in FAULT_KINDS:
         raise ValueError(f"unknown fault kind {kind!r}: use one of {', '.join(FAULT_KINDS)}")
     return role.strip(), kind, number
+
+
+def apply_transport_options(settings: SimSettings, texts: tuple[str, ...] | list[str]) -> None:
+    """'hislip' (every instrument) or 'dmm1=hislip' (one role), applied in order. ValueError
+    says how to write it."""
+    for text in texts:
+        role, _, transport = text.rpartition("=")
+        transport = transport.strip().lower()
+        if transport not in TRANSPORTS:
+            raise ValueError(f"unknown transport {transport!r}: write {' or '.join(TRANSPORTS)}, "
+                             "or ROLE=TRANSPORT for one instrument, e.g. dmm1=hislip")
+        if role.strip():
+            settings.transports[role.strip()] = transport
+        else:
+            settings.transport = transport
+            settings.transports.clear()
 
 
 def apply_fault(bench: SimBench, role: str, kind: str, value: float) -> None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from sim_instruments.instrument import Instrument, format_float
+from sim_instruments.instrument import Instrument
 from sim_instruments.model import DEFAULT_COMPLIANCE_A, SLEW_V_PER_S, BenchModel
 from sim_instruments.scpi_params import Arguments, boolean, choice, integer, number
 from sim_instruments.scpi_tree import CommandTree
@@ -39,12 +39,12 @@ class Supply(Instrument):
         tree.add("INSTrument[:SELect]", self._select_name, lambda: f"CH{self.selected}",
                  args=Arguments([choice("CH1", "CH2")]))
         tree.add("[SOURce:]VOLTage[:LEVel][:IMMediate][:AMPLitude]", self._set_voltage,
-                 lambda: format_float(self._channel().programmed_v), args=volts)
+                 lambda: self.dialect.number(self._channel().programmed_v, "V"), args=volts)
         tree.add("[SOURce:]CURRent[:LEVel][:IMMediate][:AMPLitude]", self._set_current,
-                 lambda: format_float(self._channel().compliance_a), args=amps)
-        tree.add("[SOURce:]VOLTage:SLEW", query=lambda: format_float(SLEW_V_PER_S))
+                 lambda: self.dialect.number(self._channel().compliance_a, "A"), args=amps)
+        tree.add("[SOURce:]VOLTage:SLEW", query=lambda: self.dialect.number(SLEW_V_PER_S))
         tree.add("OUTPut[:STATe]", self._set_output,
-                 lambda: "1" if self._channel().output else "0", args=Arguments([boolean]))
+                 lambda: self.dialect.flag(self._channel().output), args=Arguments([boolean]))
         tree.add("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure_voltage)
         tree.add("MEASure[:SCALar]:CURRent[:DC]", query=self._measure_current)
 
@@ -74,11 +74,11 @@ class Supply(Instrument):
             value = self.model.supply_voltage(self.selected, self.clock.now())
             on = self._channel().output or value != 0.0
         noise = self._rng.normal(0.0, VOLTAGE_NOISE_V) if on else 0.0
-        return format_float(value + noise)
+        return self.dialect.number(value + noise, "V")
 
     def _measure_current(self) -> str:
         with self.model.lock:
             value = self.model.supply_current(self.selected)
             on = self._channel().output
         noise = self._rng.normal(0.0, CURRENT_NOISE_A) if on else 0.0
-        return format_float(value + noise)
+        return self.dialect.number(value + noise, "A")

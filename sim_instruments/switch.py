@@ -55,7 +55,7 @@ class FixtureSwitch(Instrument):
 
     def _query_closed(self, channels: tuple[int, ...]) -> str:
         self._check(channels)
-        return ",".join("1" if c in self.model.relays else "0" for c in channels)
+        return ",".join(self.dialect.flag(c in self.model.relays) for c in channels)
 
     def _query_open(self, channels: tuple[int, ...]) -> str:
         self._check(channels)

@@ -263,12 +263,16 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
               help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
+@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip",
+              help="How the simulated instruments are served: raw SCPI sockets (default) or HiSLIP; "
+                   "ROLE=... for one instrument (repeatable).")
 @_RESUME
 @_MAX_FAULTS
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
-            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int) -> None:
+            force: bool, stdf: bool, transports: tuple[str, ...], resume_dir: Path | None,
+            max_faults: int) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -278,6 +282,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
     if lot_id is not None and out is None and resume_dir is None:
         _default_out(lot_id)          # refused before anything starts
     settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
+    _transports(settings, transports)
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
     resume = None
     if resume_dir is not None:
@@ -290,8 +295,11 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
     lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
     out = out or _default_out(lot_id)
     extra = {"dry_run": {key: getattr(settings, key) for key in _SIM_KEYS}}
-    with SimBench(settings) as sim, tempfile.TemporaryDirectory() as temp:
-        sim.start()
+    try:
+        simulated = SimBench(settings)
+    except ValueError as exc:          # e.g. --transport for a role this bench does not have
+        raise Refused(f"simulated bench: {exc}") from None
+    with simulated as sim, tempfile.TemporaryDirectory() as temp:
         config = yaml.safe_load(sim.bench_config_text())
         if user_bench:
             config.update({k: user_bench[k] for k in ("station", "fixture", "safety") if k in user_bench})
@@ -329,6 +337,15 @@ class _SimulatedSocket:
 
     def close(self) -> None:
         self.link.close()
+
+
+def _transports(settings, texts: tuple[str, ...]) -> None:
+    from sim_instruments.serve import apply_transport_options
+
+    try:
+        apply_transport_options(settings, texts)
+    except ValueError as exc:
+        raise Refused(f"--transport: {exc}") from None
 
 
 def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> None:
@@ -419,22 +436,30 @@ def sim_group() -> None:
 @click.option("--single-dmm", is_flag=True, help="One DMM behind the scanner instead of one per site.")
 @click.option("--fault", "faults", multiple=True, metavar="ROLE:KIND=VALUE",
               help="Inject a fault, e.g. dmm1:latency=0.05, force:drop=100 (repeatable).")
+@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip",
+              help="How the simulated instruments are served: raw SCPI sockets (default) or HiSLIP; "
+                   "ROLE=... for one instrument (repeatable).")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
-              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...]) -> None:
+              base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
+              transports: tuple[str, ...]) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
     from sim_instruments.serve import parse_fault_option, serve_until_interrupted
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
                            dmm_per_site=not single_dmm)
+    _transports(settings, transports)
     parsed = []
     for text in faults:
         try:
             parsed.append(parse_fault_option(text))
         except ValueError as exc:
             raise Refused(f"--fault {text}: {exc}") from None
-    serve_until_interrupted(settings, write_bench=write_bench, echo=click.echo, truth_path=truth,
-                            faults=parsed)
+    try:
+        serve_until_interrupted(settings, write_bench=write_bench, echo=click.echo, truth_path=truth,
+                                faults=parsed)
+    except ValueError as exc:          # a --fault or --transport for a role the bench lacks
+        raise Refused(f"simulated bench: {exc}") from None
 
 
 def _register_datalog_tools() -> None:

@@ -16,7 +16,7 @@ from drivers.dmm import LoopDmm
 from drivers.force import ForceSource
 from drivers.handler import PartHandler, ScpiHandler
 from drivers.scpi_link import ScpiLink
-from drivers.supply import DualRailSupply
+from drivers.supply import ApplySupply, DualRailSupply
 from drivers.switch import FixtureSwitch
 
 D = TypeVar("D", covariant=True)
@@ -53,8 +53,11 @@ class Role(Generic[D]):
         return builder(link, settings)
 
 
+# Two command sets for the same role: channels picked with INSTrument:NSELect, or APPLy with
+# a channel on every command. Both are a DualRailSupply to the station.
 SUPPLY: Role[DualRailSupply] = Role("supply", {
-    "scpi-dual-supply": lambda link, s: DualRailSupply(link, s.max_rail_v, s.compliance_a)})
+    "scpi-dual-supply": lambda link, s: DualRailSupply(link, s.max_rail_v, s.compliance_a),
+    "scpi-apply-supply": lambda link, s: ApplySupply(link, s.max_rail_v, s.compliance_a)})
 # The force input commands the DUT output, which can never leave the rails.
 FORCE: Role[ForceSource] = Role("force", {
     "scpi-force-source": lambda link, s: ForceSource(link, s.max_rail_v)})

@@ -175,10 +175,12 @@ class ScpiLink:
         """Send a query and return its reply without the terminator."""
         return self._ask(command, timeout_s, lambda reply: reply, retry)
 
-    def query_float(self, command: str, timeout_s: float | None = None, retry: bool = True) -> float:
-        """A numeric reply; SCPI overload (9.9E37) becomes +-inf."""
+    def query_float(self, command: str, timeout_s: float | None = None, retry: bool = True,
+                    unit: str | None = None) -> float:
+        """A numeric reply; SCPI overload (9.9E37) becomes +-inf. `unit`: the unit the reply
+        may carry after the number (a reply in another unit is a bad reply)."""
         def one(reply: str) -> float:
-            values = self._floats(command, reply)
+            values = self._floats(command, reply, unit)
             if len(values) != 1:
                 raise InstrumentBadReply(self.role, self.resource, command,
                                          f"returned {len(values)} values where one was expected")
@@ -186,9 +188,10 @@ class ScpiLink:
 
         return self._ask(command, timeout_s, one, retry)
 
-    def query_floats(self, command: str, timeout_s: float | None = None, retry: bool = True) -> list[float]:
+    def query_floats(self, command: str, timeout_s: float | None = None, retry: bool = True,
+                     unit: str | None = None) -> list[float]:
         """A comma-separated numeric reply."""
-        return self._ask(command, timeout_s, lambda reply: self._floats(command, reply), retry)
+        return self._ask(command, timeout_s, lambda reply: self._floats(command, reply, unit), retry)
 
     def query_bools(self, command: str, timeout_s: float | None = None, retry: bool = True) -> list[bool]:
         """A comma-separated boolean reply (1/0, ON/OFF)."""
@@ -204,12 +207,13 @@ class ScpiLink:
 
         return self._ask(command, timeout_s, one, retry)
 
-    def _floats(self, command: str, reply: str) -> list[float]:
+    def _floats(self, command: str, reply: str, unit: str | None = None) -> list[float]:
         try:
-            return [parse_scpi_float(part) for part in reply.split(",")]
-        except ValueError:
+            return [parse_scpi_float(part, unit) for part in reply.split(",")]
+        except ValueError as exc:
             raise InstrumentBadReply(self.role, self.resource, command,
-                                     f"returned {_shorten(reply)!r}, not a number") from None
+                                     f"returned {_shorten(reply)!r}, not a number"
+                                     + (f" ({exc})" if "unit" in str(exc) else "")) from None
 
     def _bools(self, command: str, reply: str) -> list[bool]:
         try:

@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from sim_instruments.clock import ModelClock
+from sim_instruments.dialect import Dialect
 from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
 from sim_instruments.force import ForceSource
@@ -58,6 +59,9 @@ class SimSettings:
     skip_parts: int = 0
     transport: str = "socket"  # every instrument's transport, one of TRANSPORTS ...
     transports: dict[str, str] = field(default_factory=dict)  # ... unless named here per role
+    # How every instrument writes its replies, e.g. "number=plain,bool=word" (Dialect.parse);
+    # empty: the default forms. SIMulation:DIALect changes one instrument while it runs.
+    dialect: str = ""
 
     def transport_of(self, role: str) -> str:
         return self.transports.get(role, self.transport)
@@ -86,6 +90,9 @@ class SimBench:
         self.instruments: dict[str, Instrument] = {}
         self._servers: list[InstrumentServer] = []
         self._build()
+        dialect = Dialect.parse(settings.dialect)       # ValueError says what is allowed
+        for instrument in self.instruments.values():
+            instrument.dialect.take(dialect)
         unknown = sorted(set(settings.transports) - set(self.instruments))
         if unknown:
             raise ValueError(f"no instrument {unknown[0]!r} on this bench: {', '.join(self.instruments)}")

@@ -12,7 +12,7 @@ Four independent choices, set with SIMulation:DIALect:<choice> or SimSettings.di
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 NUMBER_FORMS = ("SCIENTIFIC", "UNSIGNED", "PLAIN", "UNITS")
 OVERLOAD_FORMS = ("LONG", "SHORT")
@@ -42,6 +42,11 @@ class Dialect:
                 raise ValueError(f"{key}={value!r}: use one of {', '.join(f.lower() for f in forms)}")
             setattr(dialect, attribute, value.strip().upper())
         return dialect
+
+    def take(self, other: Dialect) -> None:
+        """Answer in `other`'s forms from now on (in place: the command tree holds this object)."""
+        for item in fields(self):
+            setattr(self, item.name, getattr(other, item.name))
 
     def number(self, value: float, unit: str = "") -> str:
         if self.number_form == "UNSIGNED":

@@ -43,13 +43,25 @@ class Supply(Instrument):
         tree.add("[SOURce:]CURRent[:LEVel][:IMMediate][:AMPLitude]", self._set_current,
                  lambda: self.dialect.number(self._channel().compliance_a, "A"), args=amps)
         tree.add("[SOURce:]VOLTage:SLEW", query=lambda: self.dialect.number(SLEW_V_PER_S))
+        # A channel after the parameters (OUTP ON,CH2; MEAS:CURR? CH1) acts on that channel
+        # and leaves the selection alone: the command set of supplies programmed with APPLy.
+        channel = choice("CH1", "CH2")
         tree.add("OUTPut[:STATe]", self._set_output,
-                 lambda: self.dialect.flag(self._channel().output), args=Arguments([boolean]))
-        tree.add("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure_voltage)
-        tree.add("MEASure[:SCALar]:CURRent[:DC]", query=self._measure_current)
+                 self._output_query,
+                 args=Arguments([boolean], [channel]), query_args=Arguments([], [channel]))
+        tree.add("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure_voltage,
+                 query_args=Arguments([], [channel]))
+        tree.add("MEASure[:SCALar]:CURRent[:DC]", query=self._measure_current,
+                 query_args=Arguments([], [channel]))
+        tree.add("APPLy", self._apply, self._apply_query,
+                 args=Arguments([channel, volts.required[0]], [amps.required[0]]),
+                 query_args=Arguments([channel]))
 
-    def _channel(self):
-        return self.model.channels[self.selected - 1]
+    def _channel(self, name: str | None = None):
+        return self.model.channels[self._number(name) - 1]
+
+    def _number(self, name: str | None) -> int:
+        return self.selected if name is None else int(name[-1])
 
     def _select(self, channel: int) -> None:
         self.selected = channel
@@ -65,20 +77,34 @@ class Supply(Instrument):
         with self.model.lock:
             self.model.set_supply(self.selected, self.clock.now(), compliance=amps)
 
-    def _set_output(self, on: bool) -> None:
+    def _set_output(self, on: bool, name: str | None = None) -> None:
         with self.model.lock:
-            self.model.set_supply(self.selected, self.clock.now(), output=on)
+            self.model.set_supply(self._number(name), self.clock.now(), output=on)
 
-    def _measure_voltage(self) -> str:
+    def _output_query(self, name: str | None = None) -> str:
+        return self.dialect.flag(self._channel(name).output)
+
+    def _apply(self, name: str, volts: float, amps: float | None = None) -> None:
         with self.model.lock:
-            value = self.model.supply_voltage(self.selected, self.clock.now())
-            on = self._channel().output or value != 0.0
+            self.model.set_supply(self._number(name), self.clock.now(), voltage=volts, compliance=amps)
+
+    def _apply_query(self, name: str) -> str:
+        channel = self._channel(name)
+        # A quoted string of level and limit, without units, as APPLy? answers on such supplies.
+        return f'"{self.dialect.number(channel.programmed_v)},{self.dialect.number(channel.compliance_a)}"'
+
+    def _measure_voltage(self, name: str | None = None) -> str:
+        number = self._number(name)
+        with self.model.lock:
+            value = self.model.supply_voltage(number, self.clock.now())
+            on = self.model.channels[number - 1].output or value != 0.0
         noise = self._rng.normal(0.0, VOLTAGE_NOISE_V) if on else 0.0
         return self.dialect.number(value + noise, "V")
 
-    def _measure_current(self) -> str:
+    def _measure_current(self, name: str | None = None) -> str:
+        number = self._number(name)
         with self.model.lock:
-            value = self.model.supply_current(self.selected)
-            on = self._channel().output
+            value = self.model.supply_current(number)
+            on = self.model.channels[number - 1].output
         noise = self._rng.normal(0.0, CURRENT_NOISE_A) if on else 0.0
         return self.dialect.number(value + noise, "A")

@@ -439,15 +439,17 @@ def sim_group() -> None:
 @click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip",
               help="How the simulated instruments are served: raw SCPI sockets (default) or HiSLIP; "
                    "ROLE=... for one instrument (repeatable).")
+@click.option("--dialect", default="", metavar="number=...,overload=...,bool=...,error=...",
+              help="Reply forms of every instrument, e.g. number=plain,bool=word (docs/bench-commands.md).")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
               base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
-              transports: tuple[str, ...]) -> None:
+              transports: tuple[str, ...], dialect: str) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
     from sim_instruments.serve import parse_fault_option, serve_until_interrupted
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
-                           dmm_per_site=not single_dmm)
+                           dmm_per_site=not single_dmm, dialect=dialect)
     _transports(settings, transports)
     parsed = []
     for text in faults:

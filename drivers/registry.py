@@ -30,6 +30,7 @@ class DriverSettings:
     compliance_a: float
     line_hz: float
     sites: int
+    dmm_short_relays: int = 0   # DMMs whose input a fixture relay (401..) can short
 
 
 class UnknownDriver(KeyError):
@@ -63,7 +64,7 @@ FORCE: Role[ForceSource] = Role("force", {
     "scpi-force-source": lambda link, s: ForceSource(link, s.max_rail_v)})
 DMM: Role[LoopDmm] = Role("dmm", {"scpi-dmm": lambda link, s: LoopDmm(link, s.line_hz)})
 SWITCH: Role[FixtureSwitch] = Role("switch", {
-    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites)})
+    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.dmm_short_relays)})
 HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link)})
 
 ROLES: tuple[Role[object], ...] = (SUPPLY, FORCE, DMM, SWITCH, HANDLER)

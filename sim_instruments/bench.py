@@ -213,6 +213,7 @@ class SimBench:
             f"  sites: {s.sites}\n"
             f"  line_frequency: {s.line_hz:g} Hz\n"
             f"  dmm_per_site: {'true' if s.dmm_per_site else 'false'}\n"
+            "  dmm_short_relays: true\n"
             "safety:\n"
             "  max_rail: 12 V\n"
             f"  current_compliance: {compliance_ma:g} mA\n"

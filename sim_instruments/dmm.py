@@ -197,14 +197,16 @@ class Dmm(Instrument):
     def _reading(self, acq: Acquisition, i: int) -> float:
         start = acq.t0 + i * acq.cycle_s
         with self.model.lock:
-            if acq.site is None:
+            if self.model.dmm_shorted(self.index):
+                mean, part_sigma = 0.0, 0.0
+            elif acq.site is None:
                 mean, part_sigma = OPEN_INPUT_V, 0.0
             else:
                 mean = self.model.node_mean(acq.site, start, start + acq.integration_s)
                 part_sigma = self.model.node_noise(acq.site, acq.integration_s)
         range_v = range_for(mean) if acq.autorange else acq.range_v
         sigma = math.hypot(part_sigma, dmm_own_noise(range_v, acq.nplc, acq.autozero))
-        value = mean + float(self._rng.normal(0.0, sigma))
+        value = mean + self.faults.offset_v + float(self._rng.normal(0.0, sigma))
         if abs(value) > OVERRANGE * range_v:
             return math.inf
         return value

@@ -38,6 +38,8 @@ class ForceSource(Instrument):
             self.model.set_force(self.clock.now(), level=volts)
 
     def _set_output(self, on: bool) -> None:
+        if not on and self.faults.output_stuck_on:
+            return
         with self.model.lock:
             self.model.set_force(self.clock.now(), output=on)
 

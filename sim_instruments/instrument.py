@@ -21,7 +21,7 @@ from sim_instruments.dialect import (
 )
 from sim_instruments.faults import FaultSettings
 from sim_instruments.scpi_errors import ScpiError, error_text
-from sim_instruments.scpi_params import Arguments, choice, integer, number
+from sim_instruments.scpi_params import Arguments, boolean, choice, integer, number
 from sim_instruments.scpi_tree import CommandTree
 
 MAKER = "AMPSCREEN-SIM"  # our simulated bench; an invented maker name
@@ -143,7 +143,8 @@ class Instrument:
 
     def _rst(self) -> None:
         self.wait_pending()
-        self.reset()
+        if not self.faults.ignore_reset:
+            self.reset()
 
     def _cls(self) -> None:
         self.errors.clear()
@@ -201,6 +202,16 @@ class Instrument:
                  args=count)
         tree.add("SIMulation:FAULt:ERRor", push, args=Arguments([integer(-999, 999)]))
         tree.add("SIMulation:FAULt:CLEar", faults.clear)
+        tree.add("SIMulation:FAULt:STUCk", partial(setattr, faults, "stuck_relay"),
+                 args=Arguments([integer(0, 999)]))
+        tree.add("SIMulation:FAULt:OFFSet", partial(setattr, faults, "offset_v"),
+                 args=Arguments([number("V", -10.0, 10.0)]))
+        tree.add("SIMulation:FAULt:READback", partial(setattr, faults, "readback_v"),
+                 args=Arguments([number("V", -10.0, 10.0)]))
+        tree.add("SIMulation:FAULt:NORESet", partial(setattr, faults, "ignore_reset"),
+                 args=Arguments([boolean]))
+        tree.add("SIMulation:FAULt:HOT", partial(setattr, faults, "output_stuck_on"),
+                 args=Arguments([boolean]))
         dialect = self.dialect
         for header, attribute, forms in (("NUMBer", "number_form", NUMBER_FORMS),
                                          ("OVERload", "overload_form", OVERLOAD_FORMS),

@@ -9,7 +9,8 @@ from pathlib import Path
 
 from sim_instruments.bench import TRANSPORTS, SimBench, SimSettings
 
-FAULT_KINDS = ("latency", "timeout", "drop", "garbage", "error")
+FAULT_KINDS = ("latency", "timeout", "drop", "garbage", "error", "stuck", "offset", "readback",
+               "noreset", "hot")
 
 
 def parse_fault_option(text: str) -> tuple[str, str, float]:
@@ -55,8 +56,18 @@ def apply_fault(bench: SimBench, role: str, kind: str, value: float) -> None:
         faults.drop_after = int(value)
     elif kind == "garbage":
         faults.garbage_next = int(value)
-    else:
+    elif kind == "error":
         faults.push_error(int(value))
+    elif kind == "stuck":
+        faults.stuck_relay = int(value)
+    elif kind == "offset":
+        faults.offset_v = value
+    elif kind == "readback":
+        faults.readback_v = value
+    elif kind == "noreset":
+        faults.ignore_reset = bool(value)
+    else:
+        faults.output_stuck_on = bool(value)
 
 
 def serve_until_interrupted(settings: SimSettings, write_bench: Path | None = None,

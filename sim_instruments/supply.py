@@ -78,6 +78,8 @@ class Supply(Instrument):
             self.model.set_supply(self.selected, self.clock.now(), compliance=amps)
 
     def _set_output(self, on: bool, name: str | None = None) -> None:
+        if not on and self.faults.output_stuck_on:
+            return
         with self.model.lock:
             self.model.set_supply(self._number(name), self.clock.now(), output=on)
 
@@ -99,7 +101,7 @@ class Supply(Instrument):
             value = self.model.supply_voltage(number, self.clock.now())
             on = self.model.channels[number - 1].output or value != 0.0
         noise = self._rng.normal(0.0, VOLTAGE_NOISE_V) if on else 0.0
-        return self.dialect.number(value + noise, "V")
+        return self.dialect.number(value + noise + self.faults.readback_v, "V")
 
     def _measure_current(self, name: str | None = None) -> str:
         number = self._number(name)

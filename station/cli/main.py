@@ -23,6 +23,7 @@ from rich.console import Console
 
 from drivers.errors import InstrumentError, RequestRefused
 from station import __version__
+from station.cli.bench_commands import bench_group
 from station.config.files import ConfigError
 from station.datalog.folder import SAFE_NAME_CHARS, is_safe_folder_name
 from station.datalog.resume import ResumeState
@@ -474,6 +475,7 @@ def _register_datalog_tools() -> None:
 
 
 _register_datalog_tools()
+main.add_command(bench_group)
 
 if __name__ == "__main__":
     main()

@@ -96,6 +96,8 @@ class FixtureSection(_Strict):
     sites: int = Field(strict=True)
     line_frequency: Hertz = Field(gt=0, le=1000)
     dmm_per_site: bool | None = Field(None, strict=True)
+    # Relays 401.. short the input of DMM 1.. to fixture ground (the self-test's zero check).
+    dmm_short_relays: bool = Field(False, strict=True)
 
 
 class SafetySection(_Strict):
@@ -133,6 +135,7 @@ class BenchConfig:
     max_rail_v: float
     compliance_a: float
     source: Path | None = None
+    dmm_short_relays: bool = False
 
     @property
     def loop_gain(self) -> float:
@@ -185,7 +188,7 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
                        rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
-                       source=source)
+                       source=source, dmm_short_relays=fixture.dmm_short_relays)
 
 
 def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:

@@ -12,6 +12,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Generic, TypeVar
 
+from drivers.dio_handler import DioHandshakeHandler, HandshakeTiming
 from drivers.dmm import LoopDmm
 from drivers.force import ForceSource
 from drivers.handler import PartHandler, ScpiHandler
@@ -31,6 +32,7 @@ class DriverSettings:
     line_hz: float
     sites: int
     dmm_short_relays: int = 0   # DMMs whose input a fixture relay (401..) can short
+    handshake: HandshakeTiming | None = None   # a handler wired through digital I/O lines
 
 
 class UnknownDriver(KeyError):
@@ -65,7 +67,15 @@ FORCE: Role[ForceSource] = Role("force", {
 DMM: Role[LoopDmm] = Role("dmm", {"scpi-dmm": lambda link, s: LoopDmm(link, s.line_hz)})
 SWITCH: Role[FixtureSwitch] = Role("switch", {
     "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.dmm_short_relays)})
-HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link)})
+def _dio_handler(link: ScpiLink, settings: DriverSettings) -> DioHandshakeHandler:
+    if settings.handshake is None:
+        raise UnknownDriver("dio-handshake needs the bench config's handshake section")
+    return DioHandshakeHandler(link, settings.sites, settings.handshake)
+
+
+# A handler that takes HANDler commands, or one wired to a digital I/O instrument.
+HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link),
+                                              "dio-handshake": _dio_handler})
 
 ROLES: tuple[Role[object], ...] = (SUPPLY, FORCE, DMM, SWITCH, HANDLER)
 

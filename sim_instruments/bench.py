@@ -13,6 +13,7 @@ from pathlib import Path
 
 from sim_instruments.clock import ModelClock
 from sim_instruments.dialect import Dialect
+from sim_instruments.dio import DigitalIo, WiredHandler
 from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
 from sim_instruments.force import ForceSource
@@ -27,6 +28,10 @@ from sim_instruments.switch import FixtureSwitch
 
 DRIVERS = {"supply": "scpi-dual-supply", "force": "scpi-force-source", "dmm": "scpi-dmm",
            "switch": "scpi-fixture-switch", "handler": "scpi-handler"}
+# The handshake's timing for the wired handler (its own minimums are 1 ms and 0.5 ms of
+# model time, sim_instruments/dio.py); the prefix numbers parts as the simulated lot does.
+HANDSHAKE_TEXT = ("handshake:\n  strobe_width: 2 ms\n  settle: 1 ms\n  start_timeout: 10 s\n"
+                  "  part_id_prefix: D\n")
 
 # How each simulated instrument can be reached: a raw SCPI socket (newline-terminated
 # messages, resource ...::PORT::SOCKET) or HiSLIP (END-terminated messages over two channels,
@@ -62,6 +67,9 @@ class SimSettings:
     # How every instrument writes its replies, e.g. "number=plain,bool=word" (Dialect.parse);
     # empty: the default forms. SIMulation:DIALect changes one instrument while it runs.
     dialect: str = ""
+    # How the handler is reached: "scpi" (HANDler commands) or "dio" (a digital I/O
+    # instrument, role handler, with the handler wired to its lines: sim_instruments/dio.py).
+    handler_interface: str = "scpi"
 
     def transport_of(self, role: str) -> str:
         return self.transports.get(role, self.transport)
@@ -114,8 +122,18 @@ class SimBench:
             role = f"dmm{k}"
             self.instruments[role] = Dmm(m, k, s.seed, s.line_hz, **self._common(role, 2 + k))
         self.instruments["switch"] = FixtureSwitch(m, **self._common("switch", 10))
-        self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
-                                              **self._common("handler", 11))
+        if s.handler_interface == "dio":
+            common = self._common("handler", 11)
+            handler = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
+                              **{**common, "role": "wired handler", "faults": FaultSettings()})
+            self.wired_handler: WiredHandler | None = WiredHandler(handler)
+            self.instruments["handler"] = DigitalIo(self.wired_handler, **common)
+        elif s.handler_interface == "scpi":
+            self.wired_handler = None
+            self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
+                                                  **self._common("handler", 11))
+        else:
+            raise ValueError(f"unknown handler interface {s.handler_interface!r}: use scpi or dio")
 
     # --- life cycle ----------------------------------------------------------------------
     def start(self) -> SimBench:
@@ -195,6 +213,7 @@ class SimBench:
             f'    - {{resource: "{res[r]}", driver: {DRIVERS["dmm"]}, timeout: 5 s}}'
             for r in sorted((r for r in res if r.startswith("dmm")), key=lambda r: int(r[3:])))
         compliance_ma = DEFAULT_COMPLIANCE_A * 1e3
+        handler_driver = "dio-handshake" if s.handler_interface == "dio" else DRIVERS["handler"]
         return (
             f"# Bench config for the simulated bench (seed {s.seed}), written by the simulator."
             " Invented demo bench.\n"
@@ -206,7 +225,7 @@ class SimBench:
             "  dmm:\n"
             f"{dmm_lines}\n"
             f'  switch:  {{resource: "{res["switch"]}", driver: {DRIVERS["switch"]}, timeout: 5 s}}\n'
-            f'  handler: {{resource: "{res["handler"]}", driver: {DRIVERS["handler"]}, timeout: 5 s}}\n'
+            f'  handler: {{resource: "{res["handler"]}", driver: {handler_driver}, timeout: 5 s}}\n'
             "fixture:\n"
             f"  rf: {_si(s.rf_ohm, 'Ohm')}\n"
             f"  rs: {_si(s.rs_ohm, 'Ohm')}\n"
@@ -217,6 +236,7 @@ class SimBench:
             "safety:\n"
             "  max_rail: 12 V\n"
             f"  current_compliance: {compliance_ma:g} mA\n"
+            + (HANDSHAKE_TEXT if s.handler_interface == "dio" else "")
         )
 
     def write_bench_config(self, path: str | Path) -> None:

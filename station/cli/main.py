@@ -267,13 +267,17 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip",
               help="How the simulated instruments are served: raw SCPI sockets (default) or HiSLIP; "
                    "ROLE=... for one instrument (repeatable).")
+@click.option("--handler", "handler_interface", type=click.Choice(["scpi", "dio"]), default="scpi",
+              show_default=True,
+              help="The simulated handler takes HANDler commands (scpi) or is wired through a digital I/O "
+                   "instrument's lines (dio, driver dio-handshake).")
 @_RESUME
 @_MAX_FAULTS
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
-            force: bool, stdf: bool, transports: tuple[str, ...], resume_dir: Path | None,
-            max_faults: int) -> None:
+            force: bool, stdf: bool, transports: tuple[str, ...], handler_interface: str,
+            resume_dir: Path | None, max_faults: int) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -282,8 +286,11 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
     operator = _operator(operator)
     if lot_id is not None and out is None and resume_dir is None:
         _default_out(lot_id)          # refused before anything starts
-    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed)
+    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed, handler_interface=handler_interface)
     _transports(settings, transports)
+    if handler_interface == "dio" and (manual or resume_dir is not None):
+        # A handshake carries no part ids: numbering them again after a resume would repeat ids.
+        raise Refused("--handler dio: not with --manual or --resume (the handshake carries no part ids)")
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
     resume = None
     if resume_dir is not None:
@@ -442,15 +449,19 @@ def sim_group() -> None:
                    "ROLE=... for one instrument (repeatable).")
 @click.option("--dialect", default="", metavar="number=...,overload=...,bool=...,error=...",
               help="Reply forms of every instrument, e.g. number=plain,bool=word (docs/bench-commands.md).")
+@click.option("--handler", "handler_interface", type=click.Choice(["scpi", "dio"]), default="scpi",
+              show_default=True,
+              help="The simulated handler takes HANDler commands (scpi) or is wired through a digital I/O "
+                   "instrument's lines (dio, driver dio-handshake).")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
               base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
-              transports: tuple[str, ...], dialect: str) -> None:
+              transports: tuple[str, ...], dialect: str, handler_interface: str) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
     from sim_instruments.serve import parse_fault_option, serve_until_interrupted
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
-                           dmm_per_site=not single_dmm, dialect=dialect)
+                           dmm_per_site=not single_dmm, dialect=dialect, handler_interface=handler_interface)
     _transports(settings, transports)
     parsed = []
     for text in faults:

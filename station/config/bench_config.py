@@ -15,6 +15,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 from pydantic_core import PydanticCustomError
 from pyvisa.rname import InvalidResourceName, parse_resource_name
 
+from drivers.dio_handler import HandshakeTiming
 from drivers.registry import DRIVERS, known_drivers
 from drivers.supply import INSTRUMENT_MAX_A as SUPPLY_MAX_A
 from drivers.supply import INSTRUMENT_MAX_V as SUPPLY_MAX_V
@@ -105,12 +106,22 @@ class SafetySection(_Strict):
     current_compliance: Amps
 
 
+class HandshakeSection(_Strict):
+    """Timing of a handler wired through digital I/O lines (driver dio-handshake)."""
+
+    strobe_width: Seconds = Field(gt=0, le=1)
+    settle: Seconds = Field(ge=0, le=1)
+    start_timeout: Seconds = Field(gt=0, le=3600)
+    part_id_prefix: str = Field("P", pattern=r"^[A-Za-z0-9][A-Za-z0-9_.:/+-]{0,20}$")
+
+
 class BenchFile(_Strict):
     station: str = ""
     visa_library: str = "@py"
     instruments: InstrumentsSection
     fixture: FixtureSection
     safety: SafetySection
+    handshake: HandshakeSection | None = None
 
 
 @dataclass(frozen=True)
@@ -136,6 +147,7 @@ class BenchConfig:
     compliance_a: float
     source: Path | None = None
     dmm_short_relays: bool = False
+    handshake: HandshakeTiming | None = None
 
     @property
     def loop_gain(self) -> float:
@@ -188,7 +200,23 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
                        rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
-                       source=source, dmm_short_relays=fixture.dmm_short_relays)
+                       source=source, dmm_short_relays=fixture.dmm_short_relays,
+                       handshake=_handshake(doc, model))
+
+
+def _handshake(doc: YamlDocument, model: BenchFile) -> HandshakeTiming | None:
+    handler = model.instruments.handler
+    wired = handler is not None and handler.driver == "dio-handshake"
+    section = model.handshake
+    if wired and section is None:
+        raise doc.error(["instruments", "handler", "driver"],
+                        "dio-handshake needs the handshake timing",
+                        "add a handshake section: strobe_width, settle, start_timeout "
+                        "(e.g. 2 ms, 1 ms, 30 s)")
+    if section is None:
+        return None
+    return HandshakeTiming(section.strobe_width, section.settle, section.start_timeout,
+                           section.part_id_prefix)
 
 
 def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:

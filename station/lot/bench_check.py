@@ -187,7 +187,8 @@ class BenchCheck:
         config, links = self.config, self.links
         settings = DriverSettings(max_rail_v=config.max_rail_v, compliance_a=config.compliance_a,
                                   line_hz=config.line_hz, sites=config.sites,
-                                  dmm_short_relays=len(config.dmm_roles) if config.dmm_short_relays else 0)
+                                  dmm_short_relays=len(config.dmm_roles) if config.dmm_short_relays else 0,
+                                  handshake=config.handshake)
 
         def driver(name: str) -> str:
             return config.instruments[name].driver

@@ -115,6 +115,10 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
     live: list[LotProgress] = []   # the progress bar, once it runs: paused at every prompt
 
     plan = build_plan(job.bench_path, job.sequence_path, job.limits_path)   # refused: ConfigError
+    if job.resume is not None and plan.bench.handshake is not None:
+        # A handshake carries no part ids: numbering them again would repeat the lot's ids.
+        raise Refused(f"{job.bench_path}: a lot on a handler wired through digital I/O (dio-handshake) "
+                      "cannot be resumed yet; start a new lot for the parts not yet sorted")
     writer = DatalogWriter(job.out, force=job.force, resume=job.resume)      # refused: DatalogError
     try:
         bench = open_bench(plan.bench, ask=lambda text: _ask_operator(text, live), seated=job.seated)

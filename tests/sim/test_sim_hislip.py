@@ -64,18 +64,17 @@ def test_device_clear_while_a_reply_is_pending(dmm, sim):
     # The reply is held back (latency): the client gives up, clears the device, and the next
     # query gets its own reply, never the abandoned one.
     dmm.write(f"FORM REAL,64;:ZERO:AUTO OFF;:VOLT:NPLC 0.02;:SAMP:COUN {BUFFER_READINGS}")
-    sim.faults("dmm1").latency_s = 600.0      # model seconds: 0.6 s of wall time
-    dmm.timeout = 200
+    sim.faults("dmm1").latency_s = 5000.0     # model seconds: 5 s of wall time
+    dmm.timeout = 300
     dmm.write("READ?")
     with pytest.raises(pyvisa.errors.VisaIOError) as caught:
         dmm.read_raw()
     assert caught.value.error_code == pyvisa.constants.StatusCode.error_timeout
+    dmm.timeout = 5000                          # the clear itself waits as long as any query
     started = time.monotonic()
     dmm.clear()
     sim.faults("dmm1").latency_s = 0.0
-    assert time.monotonic() - started < 0.5     # the clear does not wait out the latency
-    dmm.timeout = 5000
-    time.sleep(0.7)                             # past the end of the held-back reply
+    assert time.monotonic() - started < 3.0     # the clear does not wait out the 5 s latency
     assert dmm.query("*IDN?").startswith("AMPSCREEN-SIM,")
     dmm.write("FORM ASC;:SAMP:COUN 1")
 

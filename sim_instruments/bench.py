@@ -25,6 +25,7 @@ from sim_instruments.population import TRUTH_COLUMNS, PartTruth, make_population
 from sim_instruments.server import CommandRecord, InstrumentServer
 from sim_instruments.supply import Supply
 from sim_instruments.switch import FixtureSwitch
+from sim_instruments.vxi11_server import Vxi11Server
 
 DRIVERS = {"supply": "scpi-dual-supply", "force": "scpi-force-source", "dmm": "scpi-dmm",
            "switch": "scpi-fixture-switch", "handler": "scpi-handler"}
@@ -34,9 +35,10 @@ HANDSHAKE_TEXT = ("handshake:\n  strobe_width: 2 ms\n  settle: 1 ms\n  start_tim
                   "  part_id_prefix: D\n")
 
 # How each simulated instrument can be reached: a raw SCPI socket (newline-terminated
-# messages, resource ...::PORT::SOCKET) or HiSLIP (END-terminated messages over two channels,
-# resource ...::hislip0,PORT::INSTR).
-TRANSPORTS = ("socket", "hislip")
+# messages, resource ...::PORT::SOCKET), HiSLIP (END-terminated messages over two channels,
+# resource ...::hislip0,PORT::INSTR) or VXI-11 on its own port, without the portmapper
+# (resource ...,PORT::inst0::INSTR, which pyvisa-py reads).
+TRANSPORTS = ("socket", "hislip", "vxi11")
 
 __all__ = ["SimBench", "SimSettings", "CommandRecord", "FaultSettings", "PartTruth"]
 
@@ -143,7 +145,12 @@ class SimBench:
         try:
             for i, (role, instrument) in enumerate(self.instruments.items()):
                 port = self.settings.base_port + i if self.settings.base_port else 0
-                if self.settings.transport_of(role) == "hislip":
+                if self.settings.transport_of(role) == "vxi11":
+                    vxi11 = Vxi11Server(instrument, self._faults[role], self.clock,
+                                        self.settings.host, port, log)
+                    self._servers.append(vxi11)
+                    self.resources[role] = vxi11.resource
+                elif self.settings.transport_of(role) == "hislip":
                     hislip = HislipServer(instrument, self._faults[role], self.clock,
                                           self.settings.host, port, log)
                     self._servers.append(hislip)

@@ -268,9 +268,9 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
               help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
-@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip",
-              help="How the simulated instruments are served: raw SCPI sockets (default) or HiSLIP; "
-                   "ROLE=... for one instrument (repeatable).")
+@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip|vxi11",
+              help="How the simulated instruments are served: raw SCPI sockets (default), HiSLIP, or VXI-11 "
+                   "without the portmapper (pyvisa-py only); ROLE=... for one instrument (repeatable).")
 @click.option("--handler", "handler_interface", type=click.Choice(["scpi", "dio"]), default="scpi",
               show_default=True,
               help="The simulated handler takes HANDler commands (scpi) or is wired through a digital I/O "
@@ -448,9 +448,9 @@ def sim_group() -> None:
 @click.option("--single-dmm", is_flag=True, help="One DMM behind the scanner instead of one per site.")
 @click.option("--fault", "faults", multiple=True, metavar="ROLE:KIND=VALUE",
               help="Inject a fault, e.g. dmm1:latency=0.05, force:drop=100 (repeatable).")
-@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip",
-              help="How the simulated instruments are served: raw SCPI sockets (default) or HiSLIP; "
-                   "ROLE=... for one instrument (repeatable).")
+@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip|vxi11",
+              help="How the simulated instruments are served: raw SCPI sockets (default), HiSLIP, or VXI-11 "
+                   "without the portmapper (pyvisa-py only); ROLE=... for one instrument (repeatable).")
 @click.option("--dialect", default="", metavar="number=...,overload=...,bool=...,error=...",
               help="Reply forms of every instrument, e.g. number=plain,bool=word (docs/bench-commands.md).")
 @click.option("--handler", "handler_interface", type=click.Choice(["scpi", "dio"]), default="scpi",

@@ -1,6 +1,7 @@
-"""`python -m benchmarks [--quick] [--json FILE]`: test time against the physics floor,
-adaptive against fixed settling, the station's own overhead, multi-site throughput,
-accuracy against the simulator's truth, and datalog speed. See benchmarks/README.md.
+"""`python -m benchmarks [--quick] [--only SECTION] [--json FILE]`: test time against the
+physics floor, adaptive against fixed settling, the station's own overhead, multi-site
+throughput, accuracy against the simulator's truth, datalog speed, and the round trip over
+HiSLIP against a raw socket. See benchmarks/README.md.
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ from benchmarks.overhead import replay, replay_through_links, station_on_ideal_b
 from benchmarks.physics_floor import FloorBench, index_floor, worst_case_wait
 from benchmarks.report import print_report
 from benchmarks.sizes import SIZES, Sizes
+from benchmarks.transports import transport_round_trips
 from benchmarks.truth_score import score_datalog, truth_parts
 from sim_instruments.bench import SimSettings
 from sim_instruments.population import make_population
@@ -34,6 +36,7 @@ SEED = 11
 # process the station's DMM worker threads contend for the GIL with the simulator's server
 # threads. The accuracy lots keep the bench in process: they are scored, not timed.
 OWN_PROCESS = True
+SECTIONS = ("timing", "accuracy", "overhead", "datalog", "transports")
 
 
 def fixed_sequence(folder: Path, wait_s: float) -> Path:
@@ -203,6 +206,7 @@ def main(argv: list[str] | None = None) -> dict:
                         help="only the fleet-store figures (needs PostgreSQL; minutes; see benchmarks/README.md)")
     parser.add_argument("--parquet-rows", type=int, default=100_000_000,
                         help="with --store: result rows of the synthetic Parquet history")
+    parser.add_argument("--only", choices=SECTIONS, help="run one section of the benchmark")
     args = parser.parse_args(argv)
     if args.store:
         return _store_main(args)
@@ -212,11 +216,19 @@ def main(argv: list[str] | None = None) -> dict:
         wait = worst_case_wait(load_sequence(DEMO_SEQUENCE), make_population(SEED, 200), FloorBench())
         fixed_path = fixed_sequence(work, wait)
         figures: dict = {"mode": sizes.name, "machine": machine_info(), "sizes": sizes.as_dict(),
-                         "fixed_wait_s": wait, "bench_in_own_process": OWN_PROCESS}
-        figures.update(timing(sizes, work, fixed_path))
-        figures.update(accuracy(sizes, work, fixed_path))
-        figures.update(overhead(sizes, work))
-        figures.update(datalog(sizes, work, Path(figures.pop("datalog"))))
+                         "fixed_wait_s": wait, "bench_in_own_process": OWN_PROCESS, "only": args.only}
+        chosen = [args.only] if args.only else list(SECTIONS)
+        if "timing" in chosen:
+            figures.update(timing(sizes, work, fixed_path))
+        if "accuracy" in chosen or "datalog" in chosen:   # the datalog section reads its lot
+            figures.update(accuracy(sizes, work, fixed_path))
+        if "overhead" in chosen:
+            figures.update(overhead(sizes, work))
+        if "datalog" in chosen:
+            figures.update(datalog(sizes, work, Path(figures["datalog"])))
+        figures.pop("datalog", None)
+        if "transports" in chosen:
+            figures.update(transport_round_trips(sizes.round_trips))
     print_report(figures)
     if args.json:
         args.json.write_text(json.dumps(figures, indent=2, allow_nan=True), encoding="utf-8")

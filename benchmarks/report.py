@@ -20,6 +20,7 @@ TARGETS = {
     "misbin_rate": ("misbin rate (accuracy lot)", "", None),
     "datalog_rows_per_s": ("datalog writer rows/s", "", None),
     "summary_1m_rows_s": ("summary of 1M rows, s", "<= 5", lambda v: v <= 5),
+    "hislip_round_trip_ratio": ("*IDN? round trip, HiSLIP / raw socket (loopback)", "", None),
 }
 
 
@@ -35,10 +36,12 @@ def _fmt(value) -> str:
 
 def print_report(figures: dict, console: Console | None = None) -> None:
     console = console or Console()
-    table = Table(title=f"ampscreen benchmark ({figures['mode']})")
+    table = Table(title=f"ampscreen benchmark ({figures['mode']}{', ' + figures['only'] if figures.get('only') else ''})")
     for column in ("figure", "value", "target", "met"):
         table.add_column(column)
     for key, (label, target, check) in TARGETS.items():
+        if figures.get("only") and key not in figures:
+            continue                    # a run of one section shows that section only
         value = figures.get(key)
         met = "" if check is None or value is None or (isinstance(value, float) and math.isnan(value)) \
             else ("yes" if check(value) else "NO")
@@ -55,6 +58,9 @@ def print_report(figures: dict, console: Console | None = None) -> None:
                 "summary_load_and_summarise_s", "summary_summarise_only_s"):
         if key in figures:
             detail.add_row(key, _fmt(figures[key]))
+    for transport, micros in figures.get("round_trip_us", {}).items():
+        spread = figures.get("round_trip_spread", {}).get(transport, "")
+        detail.add_row(f"*IDN? round trip, {transport}", f"{micros:.0f} us median, {spread}")
     for name, pph in figures.get("parts_per_hour", {}).items():
         detail.add_row(f"parts/h, {name}", _fmt(pph))
     for which in ("adaptive_common", "fixed_common"):

@@ -64,7 +64,7 @@ class LoopDmm:
         return _mean(self.read_samples())
 
     def read_samples(self) -> list[float]:
-        return self.link.query_floats("READ?", timeout_s=self._wait_s())
+        return self.link.query_floats("READ?", timeout_s=self._wait_s(), unit="V")
 
     def start(self) -> None:
         """INIT: start integrating now; collect with fetch()."""
@@ -78,7 +78,7 @@ class LoopDmm:
         not have been received, and a FETCh? would return the readings of an earlier one.
         """
         try:
-            return self.link.query_floats("FETC?", timeout_s=self._wait_s(), retry=False)
+            return self.link.query_floats("FETC?", timeout_s=self._wait_s(), retry=False, unit="V")
         except RETRYABLE:
             self.link.retries += 1
             return self.read_samples()

@@ -28,10 +28,10 @@ class ForceSource:
 
     def level(self) -> float:
         """Programmed level in V."""
-        return self.link.query_float("VOLT?")
+        return self.link.query_float("VOLT?", unit="V")
 
     def measure(self) -> float:
-        return self.link.query_float("MEAS:VOLT?")
+        return self.link.query_float("MEAS:VOLT?", unit="V")
 
     def output(self, on: bool) -> None:
         self.link.write_and_wait(f"OUTP {'ON' if on else 'OFF'}")

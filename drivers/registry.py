@@ -12,11 +12,12 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Generic, TypeVar
 
+from drivers.dio_handler import DioHandshakeHandler, HandshakeTiming
 from drivers.dmm import LoopDmm
 from drivers.force import ForceSource
 from drivers.handler import PartHandler, ScpiHandler
 from drivers.scpi_link import ScpiLink
-from drivers.supply import DualRailSupply
+from drivers.supply import ApplySupply, DualRailSupply
 from drivers.switch import FixtureSwitch
 
 D = TypeVar("D", covariant=True)
@@ -30,6 +31,8 @@ class DriverSettings:
     compliance_a: float
     line_hz: float
     sites: int
+    dmm_short_relays: int = 0   # DMMs whose input a fixture relay (401..) can short
+    handshake: HandshakeTiming | None = None   # a handler wired through digital I/O lines
 
 
 class UnknownDriver(KeyError):
@@ -53,15 +56,26 @@ class Role(Generic[D]):
         return builder(link, settings)
 
 
+# Two command sets for the same role: channels picked with INSTrument:NSELect, or APPLy with
+# a channel on every command. Both are a DualRailSupply to the station.
 SUPPLY: Role[DualRailSupply] = Role("supply", {
-    "scpi-dual-supply": lambda link, s: DualRailSupply(link, s.max_rail_v, s.compliance_a)})
+    "scpi-dual-supply": lambda link, s: DualRailSupply(link, s.max_rail_v, s.compliance_a),
+    "scpi-apply-supply": lambda link, s: ApplySupply(link, s.max_rail_v, s.compliance_a)})
 # The force input commands the DUT output, which can never leave the rails.
 FORCE: Role[ForceSource] = Role("force", {
     "scpi-force-source": lambda link, s: ForceSource(link, s.max_rail_v)})
 DMM: Role[LoopDmm] = Role("dmm", {"scpi-dmm": lambda link, s: LoopDmm(link, s.line_hz)})
 SWITCH: Role[FixtureSwitch] = Role("switch", {
-    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites)})
-HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link)})
+    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.dmm_short_relays)})
+def _dio_handler(link: ScpiLink, settings: DriverSettings) -> DioHandshakeHandler:
+    if settings.handshake is None:
+        raise UnknownDriver("dio-handshake needs the bench config's handshake section")
+    return DioHandshakeHandler(link, settings.sites, settings.handshake)
+
+
+# A handler that takes HANDler commands, or one wired to a digital I/O instrument.
+HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link),
+                                              "dio-handshake": _dio_handler})
 
 ROLES: tuple[Role[object], ...] = (SUPPLY, FORCE, DMM, SWITCH, HANDLER)
 

@@ -101,11 +101,7 @@ class ScpiLink:
                                       f"cannot be opened: {exc}") from exc
         instrument.timeout = self._timeout_s * 1000.0
         self._applied_timeout_ms = self._timeout_s * 1000.0
-        instrument.write_termination = "\n"
-        # Sockets and serial lines have no END signal: the newline ends every reply.
-        upper = self.resource.upper()
-        if upper.endswith("::SOCKET") or upper.startswith("ASRL"):
-            instrument.read_termination = "\n"
+        instrument.write_termination, instrument.read_termination = terminations(self.resource)
         _disable_send_delay(instrument)
         self._instrument = instrument
         self._stale = False
@@ -179,10 +175,12 @@ class ScpiLink:
         """Send a query and return its reply without the terminator."""
         return self._ask(command, timeout_s, lambda reply: reply, retry)
 
-    def query_float(self, command: str, timeout_s: float | None = None, retry: bool = True) -> float:
-        """A numeric reply; SCPI overload (9.9E37) becomes +-inf."""
+    def query_float(self, command: str, timeout_s: float | None = None, retry: bool = True,
+                    unit: str | None = None) -> float:
+        """A numeric reply; SCPI overload (9.9E37) becomes +-inf. `unit`: the unit the reply
+        may carry after the number (a reply in another unit is a bad reply)."""
         def one(reply: str) -> float:
-            values = self._floats(command, reply)
+            values = self._floats(command, reply, unit)
             if len(values) != 1:
                 raise InstrumentBadReply(self.role, self.resource, command,
                                          f"returned {len(values)} values where one was expected")
@@ -190,9 +188,10 @@ class ScpiLink:
 
         return self._ask(command, timeout_s, one, retry)
 
-    def query_floats(self, command: str, timeout_s: float | None = None, retry: bool = True) -> list[float]:
+    def query_floats(self, command: str, timeout_s: float | None = None, retry: bool = True,
+                     unit: str | None = None) -> list[float]:
         """A comma-separated numeric reply."""
-        return self._ask(command, timeout_s, lambda reply: self._floats(command, reply), retry)
+        return self._ask(command, timeout_s, lambda reply: self._floats(command, reply, unit), retry)
 
     def query_bools(self, command: str, timeout_s: float | None = None, retry: bool = True) -> list[bool]:
         """A comma-separated boolean reply (1/0, ON/OFF)."""
@@ -208,12 +207,13 @@ class ScpiLink:
 
         return self._ask(command, timeout_s, one, retry)
 
-    def _floats(self, command: str, reply: str) -> list[float]:
+    def _floats(self, command: str, reply: str, unit: str | None = None) -> list[float]:
         try:
-            return [parse_scpi_float(part) for part in reply.split(",")]
-        except ValueError:
+            return [parse_scpi_float(part, unit) for part in reply.split(",")]
+        except ValueError as exc:
             raise InstrumentBadReply(self.role, self.resource, command,
-                                     f"returned {_shorten(reply)!r}, not a number") from None
+                                     f"returned {_shorten(reply)!r}, not a number"
+                                     + (f" ({exc})" if "unit" in str(exc) else "")) from None
 
     def _bools(self, command: str, reply: str) -> list[bool]:
         try:
@@ -342,11 +342,21 @@ class ScpiLink:
         instrument = self._instrument
         try:
             instrument.clear()
-        except Exception as exc:  # a clear that fails leaves the link out of step: say so
+            return instrument
+        except Exception as exc:
+            # pyvisa-py's HiSLIP client does not drain a reply that arrived before the clear
+            # and fails on it: a fresh session is the sure way back in step.
+            failure = exc
+        self.close()
+        self.reconnects += 1
+        try:
+            self.open()
+        except InstrumentOpenError as exc:
             self._stale = True
             raise InstrumentNotSent(self.role, self.resource, command,
-                                    f"not sent: device clear failed ({exc})") from exc
-        return instrument
+                                    f"not sent: device clear failed ({failure}) and so did "
+                                    f"reconnecting ({exc.detail})") from exc
+        return self._instrument
 
     @contextmanager
     def _timeout(self, instrument: Any, seconds: float) -> Iterator[None]:
@@ -386,12 +396,30 @@ class ScpiLink:
         return InstrumentError(self.role, self.resource, command, f"failed: {exc!r}")
 
 
+def terminations(resource: str) -> tuple[str, str | None]:
+    """(write, read) termination of a resource's messages, by transport.
+
+    Every message the station sends ends with a newline (IEEE 488.2's terminator, which every
+    transport's instruments accept). How a reply ends depends on the transport: a raw socket
+    (``::SOCKET``) and a serial line (``ASRL``) carry bytes only, so the newline is the only
+    end a reply has; INSTR sessions (HiSLIP, VXI-11, USBTMC, GPIB) mark the last byte of a
+    message with END (HiSLIP's DataEnd, VXI-11's END flag, USBTMC's EOM bit, GPIB's EOI
+    line), so the read ends there and a binary block may hold any byte. The newline an
+    INSTR reply still ends with is stripped with the other white space."""
+    upper = resource.strip().upper()
+    if upper.endswith("::SOCKET") or upper.startswith("ASRL"):
+        return "\n", "\n"
+    return "\n", None
+
+
 def _pyvisa_py_socket(instrument: Any) -> socket.socket | None:
-    """The TCP socket behind a pyvisa-py SOCKET session, or None for any other backend."""
+    """The TCP socket of a pyvisa-py SOCKET session, or of a HiSLIP session's synchronous
+    channel (where replies arrive); None for any other session or backend."""
     try:
-        sock = instrument.visalib.sessions[instrument.session].interface
+        interface = instrument.visalib.sessions[instrument.session].interface
     except Exception:
         return None
+    sock = getattr(interface, "_sync", interface)   # pyvisa-py's HiSLIP client keeps it there
     return sock if isinstance(sock, socket.socket) and sock.fileno() >= 0 else None
 
 

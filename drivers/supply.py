@@ -9,10 +9,10 @@ from __future__ import annotations
 import time
 from typing import Literal
 
-from drivers.errors import InstrumentError, RequestRefused, attempt_each
+from drivers.errors import InstrumentBadReply, InstrumentError, RequestRefused, attempt_each
 from drivers.range_checks import require_within
 from drivers.scpi_link import ScpiLink
-from drivers.scpi_values import scpi_number
+from drivers.scpi_values import parse_scpi_float, scpi_number
 
 Rail = Literal["V+", "V-"]
 
@@ -46,8 +46,7 @@ class DualRailSupply:
         high = min(self.compliance_a, INSTRUMENT_MAX_A)
         amps = require_within(self.role, "current compliance", amps, INSTRUMENT_MIN_A, high, "A",
                               "bench safety compliance and instrument range")
-        value = scpi_number(amps)
-        self.link.write_and_wait(f"INST:NSEL 1;:CURR {value};:INST:NSEL 2;:CURR {value}")
+        self.link.write_and_wait(self._compliance_command(amps))
 
     def set_rails(self, v_pos: float, v_neg: float) -> None:
         """Program V+ and V- together; refused beyond max_rail, the instrument, or V+ < V-."""
@@ -60,28 +59,51 @@ class DualRailSupply:
                                  "V+ >= V-", "the rails would be reversed")
         # Recorded before sending: a setting that may have arrived counts as commanded.
         self.commanded = (v_pos, v_neg)
-        self.link.write_and_wait(f"INST:NSEL 1;:VOLT {scpi_number(v_pos)};"
-                                 f":INST:NSEL 2;:VOLT {scpi_number(v_neg)}")
+        self.link.write_and_wait(self._levels_command(v_pos, v_neg))
 
     def rails(self) -> tuple[float, float]:
         """Programmed (V+, V-)."""
-        return (self.link.query_float("INST:NSEL 1;:VOLT?"),
-                self.link.query_float("INST:NSEL 2;:VOLT?"))
+        return self._programmed_level(1), self._programmed_level(2)
 
     def outputs(self, on: bool) -> None:
-        state = "ON" if on else "OFF"
-        self.link.write_and_wait(f"INST:NSEL 1;:OUTP {state};:INST:NSEL 2;:OUTP {state}")
+        self.link.write_and_wait(self._outputs_command(on))
 
     def outputs_state(self) -> tuple[bool, bool]:
-        return (self.link.query_bool("INST:NSEL 1;:OUTP?"),
-                self.link.query_bool("INST:NSEL 2;:OUTP?"))
+        return (self.link.query_bool(self._output_query(1)),
+                self.link.query_bool(self._output_query(2)))
 
     def measure_current(self, rail: Rail) -> float:
         """Output current in A (V+ sources, positive; V- sinks, negative)."""
-        return self.link.query_float(f"INST:NSEL {_channel(self.role, rail)};:MEAS:CURR?")
+        return self.link.query_float(self._measure_query("CURR", _channel(self.role, rail)), unit="A")
 
     def measure_voltage(self, rail: Rail) -> float:
-        return self.link.query_float(f"INST:NSEL {_channel(self.role, rail)};:MEAS:VOLT?")
+        return self.link.query_float(self._measure_query("VOLT", _channel(self.role, rail)), unit="V")
+
+    # -- the command set: what a driver for another supply overrides ------------------------
+    # Everything above (range and safety checks, both rails in one message, the ramp-down and
+    # the read-backs) is common to every two-channel supply; only the command text differs.
+    # This one selects the channel with INSTrument:NSELect, then programs it.
+
+    def _compliance_command(self, amps: float) -> str:
+        value = scpi_number(amps)
+        return f"INST:NSEL 1;:CURR {value};:INST:NSEL 2;:CURR {value}"
+
+    def _levels_command(self, v_pos: float, v_neg: float) -> str:
+        return f"INST:NSEL 1;:VOLT {scpi_number(v_pos)};:INST:NSEL 2;:VOLT {scpi_number(v_neg)}"
+
+    def _outputs_command(self, on: bool) -> str:
+        state = "ON" if on else "OFF"
+        return f"INST:NSEL 1;:OUTP {state};:INST:NSEL 2;:OUTP {state}"
+
+    def _programmed_level(self, channel: int) -> float:
+        return self.link.query_float(f"INST:NSEL {channel};:VOLT?", unit="V")
+
+    def _output_query(self, channel: int) -> str:
+        return f"INST:NSEL {channel};:OUTP?"
+
+    def _measure_query(self, quantity: str, channel: int) -> str:
+        return f"INST:NSEL {channel};:MEAS:{quantity}?"
+
 
     def ramp_down_and_off(self, steps: int = 5, step_delay_s: float = 0.02) -> None:
         """Bring both rails to 0 V in `steps` steps, then turn both outputs off, then verify.
@@ -141,3 +163,48 @@ def _channel(role: str, rail: str) -> int:
     if rail not in _CHANNEL:
         raise RequestRefused(role, "rail", rail, "'V+' or 'V-'")
     return _CHANNEL[rail]
+
+
+class ApplySupply(DualRailSupply):
+    """A two-channel supply programmed with APPLy and a channel parameter on every command
+    (``APPL CH1,5,0.01``, ``OUTP ON,CH1``, ``MEAS:CURR? CH2``), for supplies without
+    INSTrument:NSELect. APPLy sets a channel's level and current limit together, so each
+    setting sends both: the levels the station last commanded (0 V before the first) with the
+    compliance it last set."""
+
+    def __init__(self, link: ScpiLink, max_rail_v: float, compliance_a: float) -> None:
+        super().__init__(link, max_rail_v, compliance_a)
+        self._limit_a = min(self.compliance_a, INSTRUMENT_MAX_A)
+
+    def _compliance_command(self, amps: float) -> str:
+        self._limit_a = amps
+        v_pos, v_neg = self.commanded or (0.0, 0.0)
+        return self._levels_command(v_pos, v_neg)
+
+    def _levels_command(self, v_pos: float, v_neg: float) -> str:
+        amps = scpi_number(self._limit_a)
+        return f"APPL CH1,{scpi_number(v_pos)},{amps};:APPL CH2,{scpi_number(v_neg)},{amps}"
+
+    def _outputs_command(self, on: bool) -> str:
+        state = "ON" if on else "OFF"
+        return f"OUTP {state},CH1;:OUTP {state},CH2"
+
+    def _programmed_level(self, channel: int) -> float:
+        command = f"APPL? CH{channel}"
+
+        def level(reply: str) -> float:
+            # '"<volts>,<amps>"' (a quoted string on most supplies, bare on some)
+            parts = reply.strip().strip('"').split(",")
+            try:
+                return parse_scpi_float(parts[0], "V")
+            except (ValueError, IndexError):
+                raise InstrumentBadReply(self.role, self.link.resource, command,
+                                         f"returned {reply!r}, not '\"volts,amps\"'") from None
+
+        return level(self.link.query(command))
+
+    def _output_query(self, channel: int) -> str:
+        return f"OUTP? CH{channel}"
+
+    def _measure_query(self, quantity: str, channel: int) -> str:
+        return f"MEAS:{quantity}? CH{channel}"

@@ -1,4 +1,5 @@
-"""The fixture relays: site power (10x), scanner to the first DMM (20x), output load (30x)."""
+"""The fixture relays: site power (10x), scanner to the first DMM (20x), output load (30x),
+and where the fixture has them, a short across DMM k's input (40k)."""
 
 from __future__ import annotations
 
@@ -9,7 +10,7 @@ from drivers.range_checks import require_site
 from drivers.scpi_link import ScpiLink
 
 MAX_SITES = 4
-POWER, SCANNER, LOAD = 100, 200, 300
+POWER, SCANNER, LOAD, SHORT = 100, 200, 300, 400
 
 
 def channel_list(channels: Iterable[int]) -> str:
@@ -17,11 +18,14 @@ def channel_list(channels: Iterable[int]) -> str:
 
 
 class FixtureSwitch:
-    def __init__(self, link: ScpiLink, sites: int) -> None:
+    def __init__(self, link: ScpiLink, sites: int, short_relays: int = 0) -> None:
         if not 1 <= sites <= MAX_SITES:
             raise RequestRefused(link.role, "sites", sites, f"1 to {MAX_SITES}")
+        if not 0 <= short_relays <= MAX_SITES:
+            raise RequestRefused(link.role, "DMM short relays", short_relays, f"0 to {MAX_SITES}")
         self.link = link
         self.sites = sites
+        self.short_relays = short_relays
 
     @property
     def role(self) -> str:
@@ -55,6 +59,19 @@ class FixtureSwitch:
         verb = "CLOS" if on else "OPEN"
         self.link.write_and_wait(f"ROUT:{verb} (@{LOAD + self._site(site)})")
 
+    def short_dmm_input(self, dmm: int, on: bool) -> None:
+        """Short (or un-short) the input of DMM `dmm` (1-based) with its relay 40k."""
+        if not 1 <= dmm <= self.short_relays:
+            raise RequestRefused(self.role, "DMM short relay", dmm,
+                                 f"1 to {self.short_relays}" if self.short_relays else
+                                 "none: the fixture has no DMM short relays (fixture.dmm_short_relays)")
+        self.link.write_and_wait(f"ROUT:{'CLOS' if on else 'OPEN'} (@{SHORT + dmm})")
+
+    def channels(self) -> list[int]:
+        """Every relay of the fixture, bank by bank."""
+        return ([bank + s for bank in (POWER, SCANNER, LOAD) for s in range(1, self.sites + 1)]
+                + [SHORT + k for k in range(1, self.short_relays + 1)])
+
     def open_all(self) -> None:
         self.link.write_and_wait("ROUT:OPEN:ALL")
 
@@ -67,7 +84,7 @@ class FixtureSwitch:
 
     def closed(self) -> set[int]:
         """Channel numbers (101.., 201.., 301..) of the fixture's relays that are closed."""
-        channels = [bank + s for bank in (POWER, SCANNER, LOAD) for s in range(1, self.sites + 1)]
+        channels = self.channels()
         command = f"ROUT:CLOS? {channel_list(channels)}"
         states = self.link.query_bools(command)
         if len(states) != len(channels):

@@ -8,16 +8,19 @@ from __future__ import annotations
 import csv
 import dataclasses
 import threading
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from sim_instruments.bench_errors import BenchErrorSpec, draw_bench_errors
 from sim_instruments.clock import ModelClock
+from sim_instruments.dialect import Dialect
+from sim_instruments.dio import DigitalIo, WiredHandler
 from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
 from sim_instruments.fixture_faults import FixtureFault
 from sim_instruments.force import ForceSource
 from sim_instruments.handler import Handler
+from sim_instruments.hislip_server import HislipServer
 from sim_instruments.instrument import Instrument
 from sim_instruments.model import DEFAULT_COMPLIANCE_A, BenchModel, FixtureSpec
 from sim_instruments.population import TRUTH_COLUMNS, PartTruth, make_population, truth_row
@@ -25,9 +28,20 @@ from sim_instruments.server import CommandRecord, InstrumentServer
 from sim_instruments.study_plan import StudyPlan
 from sim_instruments.supply import Supply
 from sim_instruments.switch import FixtureSwitch
+from sim_instruments.vxi11_server import Vxi11Server
 
 DRIVERS = {"supply": "scpi-dual-supply", "force": "scpi-force-source", "dmm": "scpi-dmm",
            "switch": "scpi-fixture-switch", "handler": "scpi-handler"}
+# The handshake's timing for the wired handler (its own minimums are 1 ms and 0.5 ms of
+# model time, sim_instruments/dio.py); the prefix numbers parts as the simulated lot does.
+HANDSHAKE_TEXT = ("handshake:\n  strobe_width: 2 ms\n  settle: 1 ms\n  start_timeout: 10 s\n"
+                  "  part_id_prefix: D\n")
+
+# How each simulated instrument can be reached: a raw SCPI socket (newline-terminated
+# messages, resource ...::PORT::SOCKET), HiSLIP (END-terminated messages over two channels,
+# resource ...::hislip0,PORT::INSTR) or VXI-11 on its own port, without the portmapper
+# (resource ...,PORT::inst0::INSTR, which pyvisa-py reads).
+TRANSPORTS = ("socket", "hislip", "vxi11")
 
 __all__ = ["SimBench", "SimSettings", "CommandRecord", "FaultSettings", "PartTruth"]
 
@@ -61,6 +75,17 @@ class SimSettings:
     # A fixture that breaks mid-lot (sim_instruments/fixture_faults.py).
     fixture_faults: tuple[FixtureFault, ...] = ()
     pat_outlier_share: float = 0.0   # in-spec outliers in the population (population.py)
+    transport: str = "socket"  # every instrument's transport, one of TRANSPORTS ...
+    transports: dict[str, str] = field(default_factory=dict)  # ... unless named here per role
+    # How every instrument writes its replies, e.g. "number=plain,bool=word" (Dialect.parse);
+    # empty: the default forms. SIMulation:DIALect changes one instrument while it runs.
+    dialect: str = ""
+    # How the handler is reached: "scpi" (HANDler commands) or "dio" (a digital I/O
+    # instrument, role handler, with the handler wired to its lines: sim_instruments/dio.py).
+    handler_interface: str = "scpi"
+
+    def transport_of(self, role: str) -> str:
+        return self.transports.get(role, self.transport)
 
 
 class SimBench:
@@ -71,6 +96,9 @@ class SimBench:
             raise ValueError("sites must be 1 to 4")
         if settings.line_hz not in (50.0, 60.0):
             raise ValueError("line_hz must be 50 or 60")
+        for transport in (settings.transport, *settings.transports.values()):
+            if transport not in TRANSPORTS:
+                raise ValueError(f"unknown transport {transport!r}: use {' or '.join(TRANSPORTS)}")
         self.settings = settings
         self.clock = ModelClock(settings.speed)
         self.parts = make_population(settings.seed, settings.parts, settings.defects,
@@ -88,6 +116,12 @@ class SimBench:
         self.instruments: dict[str, Instrument] = {}
         self._servers: list[InstrumentServer] = []
         self._build()
+        dialect = Dialect.parse(settings.dialect)       # ValueError says what is allowed
+        for instrument in self.instruments.values():
+            instrument.dialect.take(dialect)
+        unknown = sorted(set(settings.transports) - set(self.instruments))
+        if unknown:
+            raise ValueError(f"no instrument {unknown[0]!r} on this bench: {', '.join(self.instruments)}")
 
     # --- construction --------------------------------------------------------------------
     def _common(self, role: str, number: int) -> dict:
@@ -106,9 +140,20 @@ class SimBench:
             role = f"dmm{k}"
             self.instruments[role] = Dmm(m, k, s.seed, s.line_hz, **self._common(role, 2 + k))
         self.instruments["switch"] = FixtureSwitch(m, **self._common("switch", 10))
-        self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts,
-                                              plan=s.study_plan, fixture_faults=s.fixture_faults, seed=s.seed,
-                                              **self._common("handler", 11))
+        if s.handler_interface == "dio":
+            common = self._common("handler", 11)
+            handler = Handler(m, self.parts, s.handler_index_s, s.skip_parts, plan=s.study_plan,
+                              fixture_faults=s.fixture_faults, seed=s.seed,
+                              **{**common, "role": "wired handler", "faults": FaultSettings()})
+            self.wired_handler: WiredHandler | None = WiredHandler(handler)
+            self.instruments["handler"] = DigitalIo(self.wired_handler, **common)
+        elif s.handler_interface == "scpi":
+            self.wired_handler = None
+            self.instruments["handler"] = Handler(m, self.parts, s.handler_index_s, s.skip_parts, plan=s.study_plan,
+                                                  fixture_faults=s.fixture_faults, seed=s.seed,
+                                                  **self._common("handler", 11))
+        else:
+            raise ValueError(f"unknown handler interface {s.handler_interface!r}: use scpi or dio")
 
     # --- life cycle ----------------------------------------------------------------------
     def start(self) -> SimBench:
@@ -118,10 +163,21 @@ class SimBench:
         try:
             for i, (role, instrument) in enumerate(self.instruments.items()):
                 port = self.settings.base_port + i if self.settings.base_port else 0
-                server = InstrumentServer(instrument, self._faults[role], self.clock,
+                if self.settings.transport_of(role) == "vxi11":
+                    vxi11 = Vxi11Server(instrument, self._faults[role], self.clock,
+                                        self.settings.host, port, log)
+                    self._servers.append(vxi11)
+                    self.resources[role] = vxi11.resource
+                elif self.settings.transport_of(role) == "hislip":
+                    hislip = HislipServer(instrument, self._faults[role], self.clock,
                                           self.settings.host, port, log)
-                self._servers.append(server)
-                self.resources[role] = f"TCPIP0::{server.host}::{server.port}::SOCKET"
+                    self._servers.append(hislip)
+                    self.resources[role] = hislip.resource
+                else:
+                    server = InstrumentServer(instrument, self._faults[role], self.clock,
+                                              self.settings.host, port, log)
+                    self._servers.append(server)
+                    self.resources[role] = f"TCPIP0::{server.host}::{server.port}::SOCKET"
         except OSError:
             self.stop()
             raise
@@ -190,6 +246,7 @@ class SimBench:
             f'    - {{resource: "{res[r]}", driver: {DRIVERS["dmm"]}, timeout: 5 s}}'
             for r in sorted((r for r in res if r.startswith("dmm")), key=lambda r: int(r[3:])))
         compliance_ma = DEFAULT_COMPLIANCE_A * 1e3
+        handler_driver = "dio-handshake" if s.handler_interface == "dio" else DRIVERS["handler"]
         return (
             f"# Bench config for the simulated bench (seed {s.seed}), written by the simulator."
             " Invented demo bench.\n"
@@ -201,16 +258,18 @@ class SimBench:
             "  dmm:\n"
             f"{dmm_lines}\n"
             f'  switch:  {{resource: "{res["switch"]}", driver: {DRIVERS["switch"]}, timeout: 5 s}}\n'
-            f'  handler: {{resource: "{res["handler"]}", driver: {DRIVERS["handler"]}, timeout: 5 s}}\n'
+            f'  handler: {{resource: "{res["handler"]}", driver: {handler_driver}, timeout: 5 s}}\n'
             "fixture:\n"
             f"  rf: {_si(s.rf_ohm, 'Ohm')}\n"
             f"  rs: {_si(s.rs_ohm, 'Ohm')}\n"
             f"  sites: {s.sites}\n"
             f"  line_frequency: {s.line_hz:g} Hz\n"
             f"  dmm_per_site: {'true' if s.dmm_per_site else 'false'}\n"
+            "  dmm_short_relays: true\n"
             "safety:\n"
             "  max_rail: 12 V\n"
             f"  current_compliance: {compliance_ma:g} mA\n"
+            + (HANDSHAKE_TEXT if s.handler_interface == "dio" else "")
         )
 
     def write_bench_config(self, path: str | Path) -> None:

@@ -9,11 +9,12 @@ integrate at the same time. Noise is drawn from a generator seeded per DMM.
 from __future__ import annotations
 
 import math
+import struct
 from dataclasses import dataclass
 
 import numpy as np
 
-from sim_instruments.instrument import Instrument, format_float
+from sim_instruments.instrument import Instrument
 from sim_instruments.model import BenchModel, dmm_own_noise
 from sim_instruments.scpi_errors import ScpiError
 from sim_instruments.scpi_params import Arguments, boolean, choice, first_of, integer, number
@@ -21,8 +22,10 @@ from sim_instruments.scpi_tree import CommandTree
 
 RANGES_V = (0.1, 1.0, 10.0, 100.0, 1000.0)
 OVERRANGE = 1.2          # readings beyond 1.2 x range are overload
-OVERLOAD_TEXT = "+9.90000000E+37"
+OVERLOAD_V = 9.9e37      # SCPI's overload value
 NPLC_RANGE = (0.02, 100.0)
+# The reading buffer: 131072 readings are 1 MiB as REAL,64 (IEEE 754 doubles, big-endian).
+BUFFER_READINGS = 131072
 OPEN_INPUT_V = 0.0       # an open input (no scanner relay closed) reads about zero
 
 
@@ -47,7 +50,7 @@ class Acquisition:
     autorange: bool
     autozero: bool
     nplc: float
-    readings: list[str] | None = None
+    readings: list[float] | None = None   # +inf: overload
 
     @property
     def end(self) -> float:
@@ -72,6 +75,7 @@ class Dmm(Instrument):
         self.nplc = 1.0
         self.samples = 1
         self.autozero = True
+        self.real_format = False   # FORMat:DATA ASCii (text) or REAL (binary block)
         self._acquisition = None
 
     @property
@@ -88,16 +92,18 @@ class Dmm(Instrument):
         conf_range = first_of(choice("AUTO"), range_arg)
         tree.add("CONFigure[:VOLTage][:DC]", self._configure, args=Arguments([], [conf_range]))
         tree.add("[SENSe:]VOLTage[:DC]:NPLCycles", self._set_nplc,
-                 lambda: format_float(self.nplc),
+                 lambda: self.dialect.number(self.nplc),
                  args=Arguments([number("", *NPLC_RANGE, {"DEF": 1.0})]))
         tree.add("[SENSe:]VOLTage[:DC]:RANGe[:UPPer]", self._set_range,
-                 lambda: format_float(self.range_v), args=Arguments([range_arg]))
+                 lambda: self.dialect.number(self.range_v), args=Arguments([range_arg]))
         tree.add("[SENSe:]VOLTage[:DC]:RANGe:AUTO", self._set_autorange,
-                 lambda: "1" if self.autorange else "0", args=Arguments([boolean]))
-        tree.add("[SENSe:]ZERO:AUTO", self._set_autozero, lambda: "1" if self.autozero else "0",
+                 lambda: self.dialect.flag(self.autorange), args=Arguments([boolean]))
+        tree.add("[SENSe:]ZERO:AUTO", self._set_autozero, lambda: self.dialect.flag(self.autozero),
                  args=Arguments([first_of(boolean, choice("ONCE"))]))
         tree.add("SAMPle:COUNt", self._set_samples, lambda: str(self.samples),
-                 args=Arguments([integer(1, 1000, {"DEF": 1})]))
+                 args=Arguments([integer(1, BUFFER_READINGS, {"DEF": 1})]))
+        tree.add("FORMat[:DATA]", self._set_format, lambda: "REAL,64" if self.real_format else "ASC,0",
+                 args=Arguments([choice("ASCii", "REAL")], [integer(0, 64)]))
         tree.add("SYSTem:LFRequency", self._set_line, lambda: str(int(self.line_hz)),
                  args=Arguments([number("HZ", 50.0, 60.0)]))
         tree.add("READ", query=self._read)
@@ -136,6 +142,11 @@ class Dmm(Instrument):
     def _set_samples(self, count: int) -> None:
         self.samples = count
 
+    def _set_format(self, kind: str, length: int | None = None) -> None:
+        if kind == "REAL" and length not in (None, 64):
+            raise ScpiError(-224, "REAL data is 64 bits")
+        self.real_format = kind == "REAL"
+
     def _set_line(self, hz: float) -> None:
         if hz not in (50.0, 60.0):
             raise ScpiError(-222, "line frequency is 50 or 60 Hz")
@@ -173,12 +184,22 @@ class Dmm(Instrument):
             if not self.ideal:
                 self.clock.sleep_until(acq.end)  # the model lock is free while we integrate
             acq.readings = [self._reading(acq, i) for i in range(acq.count)]
-        return ",".join(acq.readings)
+        if not self.real_format:
+            return ",".join(self.dialect.number(v, "V") if math.isfinite(v) else self.dialect.overload("V")
+                            for v in acq.readings)
+        # IEEE 488.2 definite-length block: #, the digit count, the byte count, the bytes
+        # (carried one byte per character; the server sends them as latin-1).
+        data = struct.pack(f">{len(acq.readings)}d",
+                           *(v if math.isfinite(v) else OVERLOAD_V for v in acq.readings))
+        count = str(len(data))
+        return f"#{len(count)}{count}" + data.decode("latin-1")
 
-    def _reading(self, acq: Acquisition, i: int) -> str:
+    def _reading(self, acq: Acquisition, i: int) -> float:
         start = acq.t0 + i * acq.cycle_s
         with self.model.lock:
-            if acq.site is None:
+            if self.model.dmm_shorted(self.index):
+                mean, part_sigma = 0.0, 0.0
+            elif acq.site is None:
                 mean, part_sigma = OPEN_INPUT_V, 0.0
             else:
                 mean = self.model.node_mean(acq.site, start, start + acq.integration_s)
@@ -186,7 +207,7 @@ class Dmm(Instrument):
         range_v = range_for(mean) if acq.autorange else acq.range_v
         sigma = math.hypot(part_sigma, dmm_own_noise(range_v, acq.nplc, acq.autozero))
         gain = 1.0 + self.model.errors.dmm_gain_error[self.index - 1]  # the bench's own error
-        value = gain * (mean + float(self._rng.normal(0.0, sigma)))
+        value = gain * (mean + float(self._rng.normal(0.0, sigma))) + self.faults.offset_v
         if abs(value) > OVERRANGE * range_v:
-            return OVERLOAD_TEXT
-        return format_float(value)
+            return math.inf
+        return value

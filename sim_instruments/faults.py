@@ -19,6 +19,12 @@ class FaultSettings:
     timeout_next: int = 0         # the next n queries get no reply
     drop_after: int | None = None  # close the connection after n more messages
     garbage_next: int = 0         # the next n replies are garbled
+    # Instrument faults, for the bench self-test (station bench check) to find:
+    stuck_relay: int | None = None  # switch: this relay never closes
+    offset_v: float = 0.0         # dmm: added to every reading
+    readback_v: float = 0.0       # supply: added to every MEASure:VOLTage? reply
+    ignore_reset: bool = False    # *RST does nothing
+    output_stuck_on: bool = False  # supply, force: an output once on stays on
     seed: int = 0
     _push: Callable[[int], None] | None = field(default=None, repr=False)
     _lock: threading.Lock = field(default_factory=threading.Lock, repr=False)
@@ -36,6 +42,11 @@ class FaultSettings:
             self.timeout_next = 0
             self.drop_after = None
             self.garbage_next = 0
+            self.stuck_relay = None
+            self.offset_v = 0.0
+            self.readback_v = 0.0
+            self.ignore_reset = False
+            self.output_stuck_on = False
 
     # --- used by the server -------------------------------------------------------------
     def take_timeout(self) -> bool:

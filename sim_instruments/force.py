@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from sim_instruments.instrument import Instrument, format_float
+from sim_instruments.instrument import Instrument
 from sim_instruments.model import BenchModel
 from sim_instruments.scpi_params import Arguments, boolean, number
 from sim_instruments.scpi_tree import CommandTree
@@ -27,10 +27,10 @@ class ForceSource(Instrument):
 
     def build(self, tree: CommandTree) -> None:
         tree.add("[SOURce:]VOLTage[:LEVel][:IMMediate][:AMPLitude]", self._set_level,
-                 lambda: format_float(self.model.force_level_v),
+                 lambda: self.dialect.number(self.model.force_level_v, "V"),
                  args=Arguments([number("V", -FORCE_LIMIT_V, FORCE_LIMIT_V, {"DEF": 0.0})]))
         tree.add("OUTPut[:STATe]", self._set_output,
-                 lambda: "1" if self.model.force_output else "0", args=Arguments([boolean]))
+                 lambda: self.dialect.flag(self.model.force_output), args=Arguments([boolean]))
         tree.add("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure)
 
     def _set_level(self, volts: float) -> None:
@@ -38,6 +38,8 @@ class ForceSource(Instrument):
             self.model.set_force(self.clock.now(), level=volts)
 
     def _set_output(self, on: bool) -> None:
+        if not on and self.faults.output_stuck_on:
+            return
         with self.model.lock:
             self.model.set_force(self.clock.now(), output=on)
 
@@ -45,4 +47,4 @@ class ForceSource(Instrument):
         with self.model.lock:
             value = self.model.force_voltage()
             on = self.model.force_output
-        return format_float(value + (self._rng.normal(0.0, READBACK_NOISE_V) if on else 0.0))
+        return self.dialect.number(value + (self._rng.normal(0.0, READBACK_NOISE_V) if on else 0.0), "V")

@@ -9,11 +9,19 @@ from __future__ import annotations
 
 import threading
 from collections import deque
+from functools import partial
 
 from sim_instruments.clock import ModelClock
+from sim_instruments.dialect import (
+    BOOLEAN_FORMS,
+    ERROR_FORMS,
+    NUMBER_FORMS,
+    OVERLOAD_FORMS,
+    Dialect,
+)
 from sim_instruments.faults import FaultSettings
 from sim_instruments.scpi_errors import ScpiError, error_text
-from sim_instruments.scpi_params import Arguments, integer, number
+from sim_instruments.scpi_params import Arguments, boolean, choice, integer, number
 from sim_instruments.scpi_tree import CommandTree
 
 MAKER = "AMPSCREEN-SIM"  # our simulated bench; an invented maker name
@@ -35,10 +43,6 @@ def esr_bit_for(code: int) -> int:
     if -500 < code <= -400:
         return ESR_QYE
     return 0
-
-
-def format_float(value: float) -> str:
-    return f"{value:+.8E}"
 
 
 class ErrorQueue:
@@ -74,6 +78,7 @@ class Instrument:
         self.serial = serial
         self.clock = clock
         self.faults = faults
+        self.dialect = Dialect()   # how replies are written; SIMulation:DIALect changes it
         faults._push = self.push_error
         self.lock = threading.RLock()  # one message at a time, as on a real instrument
         self.errors = ErrorQueue()
@@ -138,7 +143,8 @@ class Instrument:
 
     def _rst(self) -> None:
         self.wait_pending()
-        self.reset()
+        if not self.faults.ignore_reset:
+            self.reset()
 
     def _cls(self) -> None:
         self.errors.clear()
@@ -164,7 +170,7 @@ class Instrument:
 
     def _error_next(self) -> str:
         code = self.errors.pop()
-        return f'{code},"{error_text(code)}"'
+        return self.dialect.error_entry(code, error_text(code))
 
     # --- SIMulation:FAULt ----------------------------------------------------------------
     def _add_simulation(self) -> None:
@@ -187,7 +193,7 @@ class Instrument:
         def push(code: int) -> None:
             self.push_error(code)
 
-        tree.add("SIMulation:FAULt:LATency", set_latency, lambda: format_float(faults.latency_s),
+        tree.add("SIMulation:FAULt:LATency", set_latency, lambda: self.dialect.number(faults.latency_s),
                  args=Arguments([number("S", 0.0, 60.0)]))
         tree.add("SIMulation:FAULt:TIMEout", set_timeout, lambda: str(faults.timeout_next),
                  args=count)
@@ -196,3 +202,26 @@ class Instrument:
                  args=count)
         tree.add("SIMulation:FAULt:ERRor", push, args=Arguments([integer(-999, 999)]))
         tree.add("SIMulation:FAULt:CLEar", faults.clear)
+        tree.add("SIMulation:FAULt:STUCk", partial(setattr, faults, "stuck_relay"),
+                 args=Arguments([integer(0, 999)]))
+        tree.add("SIMulation:FAULt:OFFSet", partial(setattr, faults, "offset_v"),
+                 args=Arguments([number("V", -10.0, 10.0)]))
+        tree.add("SIMulation:FAULt:READback", partial(setattr, faults, "readback_v"),
+                 args=Arguments([number("V", -10.0, 10.0)]))
+        tree.add("SIMulation:FAULt:NORESet", partial(setattr, faults, "ignore_reset"),
+                 args=Arguments([boolean]))
+        tree.add("SIMulation:FAULt:HOT", partial(setattr, faults, "output_stuck_on"),
+                 args=Arguments([boolean]))
+        dialect = self.dialect
+        for header, attribute, forms in (("NUMBer", "number_form", NUMBER_FORMS),
+                                         ("OVERload", "overload_form", OVERLOAD_FORMS),
+                                         ("BOOLean", "boolean_form", BOOLEAN_FORMS),
+                                         ("ERRor", "error_form", ERROR_FORMS)):
+            keywords = [_keyword(form) for form in forms]
+            tree.add(f"SIMulation:DIALect:{header}", partial(setattr, dialect, attribute),
+                     partial(getattr, dialect, attribute), args=Arguments([choice(*keywords)]))
+
+
+def _keyword(form: str) -> str:
+    """'SCIENTIFIC' -> 'SCIentific': SCPI's short form is the first four letters here."""
+    return form[:4] + form[4:].lower()

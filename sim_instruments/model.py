@@ -259,6 +259,10 @@ class BenchModel:
             sigma = math.hypot(sigma, gain * CC_MODE_NOISE_RTI)
         return sigma
 
+    def dmm_shorted(self, dmm_index: int) -> bool:
+        """True while relay 40k shorts the input of DMM k."""
+        return (400 + dmm_index) in self.relays
+
     def dmm_site(self, dmm_index: int) -> int | None:
         """Site whose node DMM `dmm_index` (1-based) sees, None for an open input."""
         if self.fixture.dmm_per_site:

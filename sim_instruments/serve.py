@@ -8,9 +8,10 @@ import threading
 from collections.abc import Callable
 from pathlib import Path
 
-from sim_instruments.bench import SimBench, SimSettings
+from sim_instruments.bench import TRANSPORTS, SimBench, SimSettings
 
-FAULT_KINDS = ("latency", "timeout", "drop", "garbage", "error")
+FAULT_KINDS = ("latency", "timeout", "drop", "garbage", "error", "stuck", "offset", "readback",
+               "noreset", "hot")
 
 
 def parse_fault_option(text: str) -> tuple[str, str, float]:
@@ -28,6 +29,22 @@ def parse_fault_option(text: str) -> tuple[str, str, float]:
     return role.strip(), kind, number
 
 
+def apply_transport_options(settings: SimSettings, texts: tuple[str, ...] | list[str]) -> None:
+    """'hislip' (every instrument) or 'dmm1=hislip' (one role), applied in order. ValueError
+    says how to write it."""
+    for text in texts:
+        role, _, transport = text.rpartition("=")
+        transport = transport.strip().lower()
+        if transport not in TRANSPORTS:
+            raise ValueError(f"unknown transport {transport!r}: write {' or '.join(TRANSPORTS)}, "
+                             "or ROLE=TRANSPORT for one instrument, e.g. dmm1=hislip")
+        if role.strip():
+            settings.transports[role.strip()] = transport
+        else:
+            settings.transport = transport
+            settings.transports.clear()
+
+
 def apply_fault(bench: SimBench, role: str, kind: str, value: float) -> None:
     if role not in bench.resources and role not in bench.instruments:
         raise ValueError(f"no instrument {role!r} on this bench: {', '.join(bench.instruments)}")
@@ -40,8 +57,18 @@ def apply_fault(bench: SimBench, role: str, kind: str, value: float) -> None:
         faults.drop_after = int(value)
     elif kind == "garbage":
         faults.garbage_next = int(value)
-    else:
+    elif kind == "error":
         faults.push_error(int(value))
+    elif kind == "stuck":
+        faults.stuck_relay = int(value)
+    elif kind == "offset":
+        faults.offset_v = value
+    elif kind == "readback":
+        faults.readback_v = value
+    elif kind == "noreset":
+        faults.ignore_reset = bool(value)
+    else:
+        faults.output_stuck_on = bool(value)
 
 
 def serve_until_interrupted(settings: SimSettings, write_bench: Path | None = None,

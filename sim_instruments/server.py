@@ -19,6 +19,7 @@ from sim_instruments.faults import FaultSettings
 from sim_instruments.instrument import Instrument
 
 MAX_MESSAGE_BYTES = 1 << 16
+SEND, SKIP, CLOSE = "send", "skip", "close"   # what becomes of a reply after a latency
 
 
 @dataclass(frozen=True)
@@ -113,31 +114,60 @@ class InstrumentServer:
 
     def _handle(self, conn: socket.socket, message: str) -> bool:
         """Serve one message; False when the connection must close."""
-        faults = self.faults
-        if faults.drop_now():
-            return False
-        drop_armed = faults.drop_after is not None
-        reply = self.instrument.process(message)
-        sent = reply
-        if reply is not None:
-            if faults.take_timeout():
-                sent = None
-            else:
-                if faults.latency_s > 0:
-                    self.clock.sleep(faults.latency_s)
-                    if _peer_closed(conn):
-                        # The client gave up waiting and closed the session: the instrument
-                        # drops the rest of that session's input instead of running it later.
-                        return False
-                data = faults.garble(reply) if faults.take_garbage() else reply.encode("ascii")
-                try:
-                    conn.sendall(data + b"\n")
-                except OSError:
-                    return False
-        if self.log is not None:
-            self.log(CommandRecord(self.instrument.role, self.clock.now(), time.time(),
-                                   message, sent))
-        return not faults.count_message(drop_armed)
+
+        def wait_latency(model_s: float) -> str:
+            self.clock.sleep(model_s)
+            # The client gave up waiting and closed the session: the instrument drops the
+            # rest of that session's input instead of running it later.
+            return CLOSE if _peer_closed(conn) else SEND
+
+        def send(data: bytes) -> bool:
+            try:
+                conn.sendall(data + b"\n")   # a raw socket has no END: the newline ends a reply
+            except OSError:
+                return False
+            return True
+
+        return serve_message(self.instrument, self.faults, message, wait_latency, send,
+                             self._record(message))
+
+    def _record(self, message: str) -> Callable[[str | None], None]:
+        def record(sent: str | None) -> None:
+            if self.log is not None:
+                self.log(CommandRecord(self.instrument.role, self.clock.now(), time.time(),
+                                       message, sent))
+        return record
+
+
+def serve_message(instrument: Instrument, faults: FaultSettings, message: str,
+                  wait_latency: Callable[[float], str], send: Callable[[bytes], bool],
+                  record: Callable[[str | None], None]) -> bool:
+    """Run one message with the instrument's faults around it, whatever the transport.
+
+    `wait_latency(model_s)` waits out an injected latency and says what became of the reply
+    meanwhile: SEND it, SKIP it (the device was cleared) or CLOSE (the client went away); `send(data)` frames
+    and sends one reply (False: the connection failed). False when the connection must close.
+    Replies are text, except binary blocks carried one byte per character (latin-1)."""
+    if faults.drop_now():
+        return False
+    drop_armed = faults.drop_after is not None
+    reply = instrument.process(message)
+    sent = reply
+    if reply is not None:
+        if faults.take_timeout():
+            sent = None
+        else:
+            outcome = wait_latency(faults.latency_s) if faults.latency_s > 0 else SEND
+            if outcome == CLOSE:
+                return False
+            if outcome == SKIP:
+                record(None)
+                return True
+            data = faults.garble(reply) if faults.take_garbage() else reply.encode("latin-1")
+            if not send(data):
+                return False
+    record(sent)
+    return not faults.count_message(drop_armed)
 
 
 def _peer_closed(conn: socket.socket) -> bool:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from sim_instruments.instrument import Instrument, format_float
+from sim_instruments.instrument import Instrument
 from sim_instruments.model import DEFAULT_COMPLIANCE_A, SLEW_V_PER_S, BenchModel
 from sim_instruments.scpi_params import Arguments, boolean, choice, integer, number
 from sim_instruments.scpi_tree import CommandTree
@@ -39,17 +39,29 @@ class Supply(Instrument):
         tree.add("INSTrument[:SELect]", self._select_name, lambda: f"CH{self.selected}",
                  args=Arguments([choice("CH1", "CH2")]))
         tree.add("[SOURce:]VOLTage[:LEVel][:IMMediate][:AMPLitude]", self._set_voltage,
-                 lambda: format_float(self._channel().programmed_v), args=volts)
+                 lambda: self.dialect.number(self._channel().programmed_v, "V"), args=volts)
         tree.add("[SOURce:]CURRent[:LEVel][:IMMediate][:AMPLitude]", self._set_current,
-                 lambda: format_float(self._channel().compliance_a), args=amps)
-        tree.add("[SOURce:]VOLTage:SLEW", query=lambda: format_float(SLEW_V_PER_S))
+                 lambda: self.dialect.number(self._channel().compliance_a, "A"), args=amps)
+        tree.add("[SOURce:]VOLTage:SLEW", query=lambda: self.dialect.number(SLEW_V_PER_S))
+        # A channel after the parameters (OUTP ON,CH2; MEAS:CURR? CH1) acts on that channel
+        # and leaves the selection alone: the command set of supplies programmed with APPLy.
+        channel = choice("CH1", "CH2")
         tree.add("OUTPut[:STATe]", self._set_output,
-                 lambda: "1" if self._channel().output else "0", args=Arguments([boolean]))
-        tree.add("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure_voltage)
-        tree.add("MEASure[:SCALar]:CURRent[:DC]", query=self._measure_current)
+                 self._output_query,
+                 args=Arguments([boolean], [channel]), query_args=Arguments([], [channel]))
+        tree.add("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure_voltage,
+                 query_args=Arguments([], [channel]))
+        tree.add("MEASure[:SCALar]:CURRent[:DC]", query=self._measure_current,
+                 query_args=Arguments([], [channel]))
+        tree.add("APPLy", self._apply, self._apply_query,
+                 args=Arguments([channel, volts.required[0]], [amps.required[0]]),
+                 query_args=Arguments([channel]))
 
-    def _channel(self):
-        return self.model.channels[self.selected - 1]
+    def _channel(self, name: str | None = None):
+        return self.model.channels[self._number(name) - 1]
+
+    def _number(self, name: str | None) -> int:
+        return self.selected if name is None else int(name[-1])
 
     def _select(self, channel: int) -> None:
         self.selected = channel
@@ -65,20 +77,36 @@ class Supply(Instrument):
         with self.model.lock:
             self.model.set_supply(self.selected, self.clock.now(), compliance=amps)
 
-    def _set_output(self, on: bool) -> None:
+    def _set_output(self, on: bool, name: str | None = None) -> None:
+        if not on and self.faults.output_stuck_on:
+            return
         with self.model.lock:
-            self.model.set_supply(self.selected, self.clock.now(), output=on)
+            self.model.set_supply(self._number(name), self.clock.now(), output=on)
 
-    def _measure_voltage(self) -> str:
+    def _output_query(self, name: str | None = None) -> str:
+        return self.dialect.flag(self._channel(name).output)
+
+    def _apply(self, name: str, volts: float, amps: float | None = None) -> None:
         with self.model.lock:
-            value = self.model.supply_voltage(self.selected, self.clock.now())
-            on = self._channel().output or value != 0.0
+            self.model.set_supply(self._number(name), self.clock.now(), voltage=volts, compliance=amps)
+
+    def _apply_query(self, name: str) -> str:
+        channel = self._channel(name)
+        # A quoted string of level and limit, without units, as APPLy? answers on such supplies.
+        return f'"{self.dialect.number(channel.programmed_v)},{self.dialect.number(channel.compliance_a)}"'
+
+    def _measure_voltage(self, name: str | None = None) -> str:
+        number = self._number(name)
+        with self.model.lock:
+            value = self.model.supply_voltage(number, self.clock.now())
+            on = self.model.channels[number - 1].output or value != 0.0
         noise = self._rng.normal(0.0, VOLTAGE_NOISE_V) if on else 0.0
-        return format_float(value + noise)
+        return self.dialect.number(value + noise + self.faults.readback_v, "V")
 
-    def _measure_current(self) -> str:
+    def _measure_current(self, name: str | None = None) -> str:
+        number = self._number(name)
         with self.model.lock:
-            value = self.model.supply_current(self.selected)
-            on = self._channel().output
+            value = self.model.supply_current(number)
+            on = self.model.channels[number - 1].output
         noise = self._rng.normal(0.0, CURRENT_NOISE_A) if on else 0.0
-        return format_float(value + noise)
+        return self.dialect.number(value + noise, "A")

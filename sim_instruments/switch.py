@@ -1,4 +1,5 @@
-"""Simulated fixture relay matrix: site power (10k), scanner (20k), output load (30k)."""
+"""Simulated fixture relay matrix: site power (10k), scanner (20k), output load (30k), and a
+short across the input of DMM k (40k, for the bench self-test's zero check)."""
 
 from __future__ import annotations
 
@@ -8,7 +9,7 @@ from sim_instruments.scpi_errors import ScpiError
 from sim_instruments.scpi_params import Arguments, channel_list
 from sim_instruments.scpi_tree import CommandTree
 
-BANKS = (1, 2, 3)  # 1xx power, 2xx scanner, 3xx load
+BANKS = (1, 2, 3, 4)  # 1xx power, 2xx scanner, 3xx load, 4xx short DMM k's input
 SCANNER_BANK = 2
 
 
@@ -33,13 +34,14 @@ class FixtureSwitch(Instrument):
         sites = self.model.fixture.sites
         for channel in channels:
             bank, site = divmod(channel, 100)
-            if bank not in BANKS or not 1 <= site <= sites:
+            if bank not in BANKS or not 1 <= site <= (4 if bank == 4 else sites):
                 raise ScpiError(-222, f"no relay {channel} on a {sites}-site fixture")
 
     def _close(self, channels: tuple[int, ...]) -> None:
         self._check(channels)
+        stuck = self.faults.stuck_relay
         with self.model.lock:
-            closed = self.model.relays | set(channels)
+            closed = self.model.relays | {c for c in channels if c != stuck}
             if sum(1 for c in closed if c // 100 == SCANNER_BANK) > 1:
                 raise ScpiError(-221, "only one scanner relay may be closed")
             self.model.set_relays(closed, self.clock.now())
@@ -55,7 +57,7 @@ class FixtureSwitch(Instrument):
 
     def _query_closed(self, channels: tuple[int, ...]) -> str:
         self._check(channels)
-        return ",".join("1" if c in self.model.relays else "0" for c in channels)
+        return ",".join(self.dialect.flag(c in self.model.relays) for c in channels)
 
     def _query_open(self, channels: tuple[int, ...]) -> str:
         self._check(channels)

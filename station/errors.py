@@ -5,6 +5,8 @@
     2  EXIT_REFUSED   refused input (a bad file, option or folder): nothing powered, nothing written
     3  EXIT_STOPPED   the lot was stopped (instrument failure, Ctrl-C, SIGTERM): bench in its
                       safe state, the datalog holds every finished part, `--resume` continues it
+    4  EXIT_CHECK_FAILED  `station bench check`: a check of the bench failed (one line each says
+                      what to do); the bench was put in its safe state
 
 Every error the station raises on purpose derives from StationError and carries its exit
 code, so the command line maps an error to an exit code in one place (station/cli/main.py).
@@ -23,6 +25,7 @@ EXIT_OK = 0
 EXIT_SOFTWARE = 1
 EXIT_REFUSED = 2
 EXIT_STOPPED = 3
+EXIT_CHECK_FAILED = 4
 
 
 class StationError(Exception):

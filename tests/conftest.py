@@ -24,3 +24,15 @@ settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "ci"))
 @pytest.fixture(scope="session")
 def repo_root() -> Path:
     return REPO_ROOT
+
+
+def pytest_addoption(parser: pytest.Parser) -> None:
+    # The driver conformance tests (tests/conformance) run against the simulated bench; given
+    # a bench config they also run against that bench's real instruments.
+    parser.addoption("--bench", default=None, metavar="BENCH.yaml",
+                     help="run the driver conformance tests against this bench's instruments too")
+
+
+def pytest_configure(config: pytest.Config) -> None:
+    config.addinivalue_line("markers", "conformance: a driver conformance test (tests/conformance)")
+    config.addinivalue_line("markers", "real_bench: runs against real instruments; needs --bench")

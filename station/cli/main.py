@@ -25,6 +25,7 @@ from rich.console import Console
 
 from drivers.errors import InstrumentError, RequestRefused
 from station import __version__
+from station.cli.bench_commands import bench_group
 from station.cli.view_commands import view_option
 from station.config.files import ConfigError
 from station.datalog.folder import SAFE_NAME_CHARS, is_safe_folder_name
@@ -122,6 +123,10 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
     live: list[LotProgress] = []   # the progress bar, once it runs: paused at every prompt
 
     plan = build_plan(job.bench_path, job.sequence_path, job.limits_path)   # refused: ConfigError
+    if job.resume is not None and plan.bench.handshake is not None:
+        # A handshake carries no part ids: numbering them again would repeat the lot's ids.
+        raise Refused(f"{job.bench_path}: a lot on a handler wired through digital I/O (dio-handshake) "
+                      "cannot be resumed yet; start a new lot for the parts not yet sorted")
     writer = DatalogWriter(job.out, force=job.force, resume=job.resume)      # refused: DatalogError
     try:
         bench = open_bench(plan.bench, ask=lambda text: _ask_operator(text, live), seated=job.seated)
@@ -319,6 +324,13 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
               help="Break the simulated fixture mid-lot: contact:2@40 (site 2 loses contact from part 40), "
                    "leakage:3@100:5uA (site 3 leaks 5 uA more per part from part 100). Repeatable.")
+@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip|vxi11",
+              help="How the simulated instruments are served: raw SCPI sockets (default), HiSLIP, or VXI-11 "
+                   "without the portmapper (pyvisa-py only); ROLE=... for one instrument (repeatable).")
+@click.option("--handler", "handler_interface", type=click.Choice(["scpi", "dio"]), default="scpi",
+              show_default=True,
+              help="The simulated handler takes HANDler commands (scpi) or is wired through a digital I/O "
+                   "instrument's lines (dio, driver dio-handshake).")
 @_RESUME
 @_MAX_FAULTS
 @view_option
@@ -326,9 +338,9 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @click.pass_context
 def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int, out: Path | None, lot_id: str | None,
             operator: str, bench_path: Path | None, sequence_path: Path, limits_path: Path, speed: float,
-            force: bool, stdf: bool, resume_dir: Path | None, max_faults: int,
-            fixture_faults: tuple[str, ...], outlier_share: float, pat_baseline: Path | None, view: Any,
-            store_url: str | None) -> None:
+            force: bool, stdf: bool, transports: tuple[str, ...], handler_interface: str,
+            fixture_faults: tuple[str, ...], outlier_share: float, pat_baseline: Path | None,
+            resume_dir: Path | None, max_faults: int, view: Any, store_url: str | None) -> None:
     """Run the screening sequence against the simulated bench (SCPI on loopback, through pyvisa-py)."""
     from sim_instruments.bench import SimBench, SimSettings
 
@@ -340,8 +352,12 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         _default_out(lot_id)          # refused before anything starts
     from station.cli.screen_commands import fixture_fault_options
 
-    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed,
+    settings = SimSettings(seed=seed, sites=sites, parts=parts, speed=speed, handler_interface=handler_interface,
                            fixture_faults=fixture_fault_options(fixture_faults), pat_outlier_share=outlier_share)
+    _transports(settings, transports)
+    if handler_interface == "dio" and (manual or resume_dir is not None):
+        # A handshake carries no part ids: numbering them again after a resume would repeat ids.
+        raise Refused("--handler dio: not with --manual or --resume (the handshake carries no part ids)")
     user_bench = _read_bench_overrides(bench_path, settings) if bench_path else None
     resume = None
     if resume_dir is not None:
@@ -358,8 +374,11 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         extra["dry_run"]["fixture_faults"] = [f.text() for f in settings.fixture_faults]
     if settings.pat_outlier_share:
         extra["dry_run"]["pat_outlier_share"] = settings.pat_outlier_share
-    with SimBench(settings) as sim, tempfile.TemporaryDirectory() as temp:
-        sim.start()
+    try:
+        simulated = SimBench(settings)
+    except ValueError as exc:          # e.g. --transport for a role this bench does not have
+        raise Refused(f"simulated bench: {exc}") from None
+    with simulated as sim, tempfile.TemporaryDirectory() as temp:
         config = yaml.safe_load(sim.bench_config_text())
         if user_bench:
             config.update({k: user_bench[k] for k in ("station", "fixture", "safety") if k in user_bench})
@@ -398,6 +417,15 @@ class _SimulatedSocket:
 
     def close(self) -> None:
         self.link.close()
+
+
+def _transports(settings, texts: tuple[str, ...]) -> None:
+    from sim_instruments.serve import apply_transport_options
+
+    try:
+        apply_transport_options(settings, texts)
+    except ValueError as exc:
+        raise Refused(f"--transport: {exc}") from None
 
 
 def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> None:
@@ -516,9 +544,19 @@ def sim_group() -> None:
                    "with --truth they are written to <truth>.bench.json.")
 @click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
               help="Break the fixture mid-lot: contact:2@40, leakage:3@100:5uA (repeatable).")
+@click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip|vxi11",
+              help="How the simulated instruments are served: raw SCPI sockets (default), HiSLIP, or VXI-11 "
+                   "without the portmapper (pyvisa-py only); ROLE=... for one instrument (repeatable).")
+@click.option("--dialect", default="", metavar="number=...,overload=...,bool=...,error=...",
+              help="Reply forms of every instrument, e.g. number=plain,bool=word (docs/bench-commands.md).")
+@click.option("--handler", "handler_interface", type=click.Choice(["scpi", "dio"]), default="scpi",
+              show_default=True,
+              help="The simulated handler takes HANDler commands (scpi) or is wired through a digital I/O "
+                   "instrument's lines (dio, driver dio-handshake).")
 def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth: Path | None, host: str,
               base_port: int, speed: float, single_dmm: bool, faults: tuple[str, ...],
-              bench_seed: int | None, fixture_faults: tuple[str, ...]) -> None:
+              transports: tuple[str, ...], dialect: str, handler_interface: str, bench_seed: int | None,
+              fixture_faults: tuple[str, ...]) -> None:
     """Serve the simulated bench on loopback until interrupted; prints ROLE RESOURCE per instrument."""
     from sim_instruments.bench import SimSettings
     from sim_instruments.bench_errors import BenchErrorSpec
@@ -526,17 +564,21 @@ def sim_serve(seed: int, sites: int, parts: int, write_bench: Path | None, truth
     from station.cli.screen_commands import fixture_fault_options
 
     settings = SimSettings(seed=seed, sites=sites, parts=parts, host=host, base_port=base_port, speed=speed,
-                           dmm_per_site=not single_dmm,
+                           dmm_per_site=not single_dmm, dialect=dialect, handler_interface=handler_interface,
                            bench_errors=BenchErrorSpec(seed=bench_seed) if bench_seed is not None else None,
                            fixture_faults=fixture_fault_options(fixture_faults))
+    _transports(settings, transports)
     parsed = []
     for text in faults:
         try:
             parsed.append(parse_fault_option(text))
         except ValueError as exc:
             raise Refused(f"--fault {text}: {exc}") from None
-    serve_until_interrupted(settings, write_bench=write_bench, echo=click.echo, truth_path=truth,
-                            faults=parsed)
+    try:
+        serve_until_interrupted(settings, write_bench=write_bench, echo=click.echo, truth_path=truth,
+                                faults=parsed)
+    except ValueError as exc:          # a --fault or --transport for a role the bench lacks
+        raise Refused(f"simulated bench: {exc}") from None
 
 
 def _register_datalog_tools() -> None:
@@ -558,6 +600,7 @@ def _register_datalog_tools() -> None:
 
 
 _register_datalog_tools()
+main.add_command(bench_group)
 
 
 def _register_store_tools() -> None:

@@ -14,6 +14,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 from pydantic_core import PydanticCustomError
 from pyvisa.rname import InvalidResourceName, parse_resource_name
 
+from drivers.dio_handler import HandshakeTiming
 from drivers.registry import DRIVERS, known_drivers
 from drivers.supply import INSTRUMENT_MAX_A as SUPPLY_MAX_A
 from drivers.supply import INSTRUMENT_MAX_V as SUPPLY_MAX_V
@@ -97,11 +98,22 @@ class FixtureSection(_Strict):
     line_frequency: Annotated[float, quantity("Hz", gt=0, le=1000)]
     dmm_per_site: bool | None = Field(None, strict=True)
     resolution: ResolutionSection | None = None
+    # Relays 401.. short the input of DMM 1.. to fixture ground (the self-test's zero check).
+    dmm_short_relays: bool = Field(False, strict=True)
 
 
 class SafetySection(_Strict):
     max_rail: Volts
     current_compliance: Amps
+
+
+class HandshakeSection(_Strict):
+    """Timing of a handler wired through digital I/O lines (driver dio-handshake)."""
+
+    strobe_width: Annotated[float, quantity("s", gt=0, le=1, why="a strobe is milliseconds long")]
+    settle: Annotated[float, quantity("s", ge=0, le=1, why="lines settle within milliseconds")]
+    start_timeout: Annotated[float, quantity("s", gt=0, le=3600, why="an hour without a start is a stopped handler")]
+    part_id_prefix: str = Field("P", pattern=r"^[A-Za-z0-9][A-Za-z0-9_.:/+-]{0,20}$")
 
 
 class BenchFile(_Strict):
@@ -110,6 +122,7 @@ class BenchFile(_Strict):
     instruments: InstrumentsSection
     fixture: FixtureSection
     safety: SafetySection
+    handshake: HandshakeSection | None = None
 
 
 @dataclass(frozen=True)
@@ -147,6 +160,8 @@ class BenchConfig:
     compliance_a: float
     source: Path | None = None
     resolution: FixtureResolution | None = None   # None: the bench config states none
+    dmm_short_relays: bool = False
+    handshake: HandshakeTiming | None = None
 
     @property
     def loop_gain(self) -> float:
@@ -202,7 +217,23 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
                        rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
-                       source=source, resolution=resolution)
+                       source=source, resolution=resolution, dmm_short_relays=fixture.dmm_short_relays,
+                       handshake=_handshake(doc, model))
+
+
+def _handshake(doc: YamlDocument, model: BenchFile) -> HandshakeTiming | None:
+    handler = model.instruments.handler
+    wired = handler is not None and handler.driver == "dio-handshake"
+    section = model.handshake
+    if wired and section is None:
+        raise doc.error(["instruments", "handler", "driver"],
+                        "dio-handshake needs the handshake timing",
+                        "add a handshake section: strobe_width, settle, start_timeout "
+                        "(e.g. 2 ms, 1 ms, 30 s)")
+    if section is None:
+        return None
+    return HandshakeTiming(section.strobe_width, section.settle, section.start_timeout,
+                           section.part_id_prefix)
 
 
 def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:

@@ -14,7 +14,7 @@ from station.config.sequence import load_sequence
 from station.demo import DEMO_SEQUENCE
 
 KEYS = ("floor_ratio", "adaptive_speedup", "overhead_ratio", "multisite_speedup_4", "misbin_rate",
-        "escapes", "datalog_rows_per_s", "summary_1m_rows_s")
+        "escapes", "datalog_rows_per_s", "summary_1m_rows_s", "hislip_round_trip_ratio")
 
 
 def test_physics_floor_holds_at_least_the_integrations():

@@ -27,9 +27,10 @@ sim_bench = pytest.importorskip("sim_instruments.bench")
 FAULT_TIMEOUT_S = 0.4
 
 
-@pytest.fixture(scope="module")
-def sim() -> Iterator[object]:
-    settings = sim_bench.SimSettings(seed=1, sites=2, parts=8, speed=20.0)
+# Every test runs over both transports the simulated bench serves: raw SCPI sockets and HiSLIP.
+@pytest.fixture(scope="module", params=sim_bench.TRANSPORTS)
+def sim(request) -> Iterator[object]:
+    settings = sim_bench.SimSettings(seed=1, sites=2, parts=8, speed=20.0, transport=request.param)
     with sim_bench.SimBench(settings).start() as running:
         yield running
 
@@ -304,11 +305,13 @@ def test_open_refuses_wrong_identity(sim):
 
 
 def test_open_names_the_instrument_that_is_not_there(sim):
-    port = sim.resources["switch"].split("::")[2]
-    text = sim.bench_config_text().replace(f"::{port}::", "::1::")
+    resource = sim.resources["switch"]
+    port = resource.split("::")[2].split(",")[-1]     # PORT, or hislip0,PORT
+    nowhere = resource.replace(port, "1")             # nothing listens on port 1
+    text = sim.bench_config_text().replace(resource, nowhere)
     with pytest.raises(InstrumentOpenError) as caught:
         open_bench(parse_bench_config(text))
-    assert caught.value.role == "switch" and "127.0.0.1::1::SOCKET" in str(caught.value)
+    assert caught.value.role == "switch" and nowhere in str(caught.value)
 
 
 def test_open_without_handler_uses_manual_prompts(sim):

@@ -17,11 +17,13 @@ SEED = 7
 PARTS = 40
 
 
-@pytest.fixture(scope="module")
-def datalog(tmp_path_factory):
+# The same dry run over raw SCPI sockets and over HiSLIP: the transport changes nothing measured.
+@pytest.fixture(scope="module", params=["socket", "hislip"])
+def datalog(tmp_path_factory, request):
     out = tmp_path_factory.mktemp("dry") / "lot"
     result = CliRunner().invoke(main, ["dry-run", "--parts", str(PARTS), "--sites", "4", "--seed", str(SEED),
-                                       "--speed", "10", "--out", str(out), "--lot", "T-1"])
+                                       "--speed", "10", "--out", str(out), "--lot", "T-1",
+                                       "--transport", request.param])
     assert result.exit_code == 0, result.output
     return out
 

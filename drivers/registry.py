@@ -30,6 +30,7 @@ class DriverSettings:
     compliance_a: float
     line_hz: float
     sites: int
+    bias_channels: tuple[int, ...] = ()   # switch channels that put Rb in series with an input
 
 
 class UnknownDriver(KeyError):
@@ -60,7 +61,7 @@ FORCE: Role[ForceSource] = Role("force", {
     "scpi-force-source": lambda link, s: ForceSource(link, s.max_rail_v)})
 DMM: Role[LoopDmm] = Role("dmm", {"scpi-dmm": lambda link, s: LoopDmm(link, s.line_hz)})
 SWITCH: Role[FixtureSwitch] = Role("switch", {
-    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites)})
+    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.bias_channels)})
 HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link)})
 
 ROLES: tuple[Role[object], ...] = (SUPPLY, FORCE, DMM, SWITCH, HANDLER)

@@ -1,4 +1,5 @@
-"""The fixture relays: site power (10x), scanner to the first DMM (20x), output load (30x)."""
+"""The fixture relays: site power (10x), scanner to the first DMM (20x), output load (30x),
+and the bias-resistor relays the bench config names (closing one opens the shunt across Rb)."""
 
 from __future__ import annotations
 
@@ -17,11 +18,12 @@ def channel_list(channels: Iterable[int]) -> str:
 
 
 class FixtureSwitch:
-    def __init__(self, link: ScpiLink, sites: int) -> None:
+    def __init__(self, link: ScpiLink, sites: int, bias_channels: Iterable[int] = ()) -> None:
         if not 1 <= sites <= MAX_SITES:
             raise RequestRefused(link.role, "sites", sites, f"1 to {MAX_SITES}")
         self.link = link
         self.sites = sites
+        self.bias_channels = tuple(sorted(bias_channels))
 
     @property
     def role(self) -> str:
@@ -55,6 +57,20 @@ class FixtureSwitch:
         verb = "CLOS" if on else "OPEN"
         self.link.write_and_wait(f"ROUT:{verb} (@{LOAD + self._site(site)})")
 
+    def set_bias(self, closed: set[int]) -> None:
+        """Close exactly `closed` of the bias relays (Rb in series), open the others, in one message."""
+        unknown = closed - set(self.bias_channels)
+        if unknown:
+            raise RequestRefused(self.role, "bias channel", min(unknown), f"one of {list(self.bias_channels)}")
+        others = set(self.bias_channels) - closed
+        parts = []
+        if others:
+            parts.append(f"ROUT:OPEN {channel_list(others)}")
+        if closed:
+            parts.append(f"ROUT:CLOS {channel_list(closed)}")
+        if parts:
+            self.link.write_and_wait(";:".join(parts))
+
     def open_all(self) -> None:
         self.link.write_and_wait("ROUT:OPEN:ALL")
 
@@ -68,6 +84,7 @@ class FixtureSwitch:
     def closed(self) -> set[int]:
         """Channel numbers (101.., 201.., 301..) of the fixture's relays that are closed."""
         channels = [bank + s for bank in (POWER, SCANNER, LOAD) for s in range(1, self.sites + 1)]
+        channels += self.bias_channels
         command = f"ROUT:CLOS? {channel_list(channels)}"
         states = self.link.query_bools(command)
         if len(states) != len(channels):

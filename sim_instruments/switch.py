@@ -1,4 +1,6 @@
-"""Simulated fixture relay matrix: site power (10k), scanner (20k), output load (30k)."""
+"""Simulated fixture relay matrix: site power (10k), scanner (20k), output load (30k), and
+the bias resistors of the + (40k) and - (50k) inputs (closing the channel opens the shunt
+across Rb, so Rb is in series with the input)."""
 
 from __future__ import annotations
 
@@ -8,7 +10,7 @@ from sim_instruments.scpi_errors import ScpiError
 from sim_instruments.scpi_params import Arguments, channel_list
 from sim_instruments.scpi_tree import CommandTree
 
-BANKS = (1, 2, 3)  # 1xx power, 2xx scanner, 3xx load
+BANKS = (1, 2, 3, 4, 5)  # 1xx power, 2xx scanner, 3xx load, 4xx / 5xx Rb in + / - input
 SCANNER_BANK = 2
 
 

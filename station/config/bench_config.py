@@ -89,6 +89,15 @@ class InstrumentsSection(_Strict):
     handler: InstrumentEntry | None = None
 
 
+class BiasSection(_Strict):
+    """Bias-current resistors: Rb per site (one value for every site, or a list) and, per
+    site, the switch channel that opens the shunt across Rb on the + and on the - input."""
+
+    rb: Ohms | list[Ohms]
+    plus: list[int] = Field(min_length=1)
+    minus: list[int] = Field(min_length=1)
+
+
 class FixtureSection(_Strict):
     # Loop resistors beyond 1 GOhm are a typing slip, not a servo-loop fixture.
     rf: Ohms = Field(gt=0, le=1e9)
@@ -96,6 +105,7 @@ class FixtureSection(_Strict):
     sites: int = Field(strict=True)
     line_frequency: Hertz = Field(gt=0, le=1000)
     dmm_per_site: bool | None = Field(None, strict=True)
+    bias: BiasSection | None = None
 
 
 class SafetySection(_Strict):
@@ -121,6 +131,24 @@ class InstrumentConfig:
 
 
 @dataclass(frozen=True)
+class BiasFixture:
+    """Per site (index 0 = site 1): Rb and the channels that put it in series with each input."""
+
+    rb_ohm: tuple[float, ...]
+    plus_channels: tuple[int, ...]
+    minus_channels: tuple[int, ...]
+
+    def channels(self, site: int, plus: bool, minus: bool) -> set[int]:
+        """The channels to close at `site` for Rb in the + and/or - input."""
+        return ({self.plus_channels[site - 1]} if plus else set()) | (
+            {self.minus_channels[site - 1]} if minus else set())
+
+    @property
+    def all_channels(self) -> tuple[int, ...]:
+        return self.plus_channels + self.minus_channels
+
+
+@dataclass(frozen=True)
 class BenchConfig:
     station: str
     visa_library: str
@@ -133,6 +161,7 @@ class BenchConfig:
     max_rail_v: float
     compliance_a: float
     source: Path | None = None
+    bias: BiasFixture | None = None    # no bias resistors: the bias_current test cannot run
 
     @property
     def loop_gain(self) -> float:
@@ -180,12 +209,45 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
     add("switch", model.instruments.switch)
     if model.instruments.handler is not None:
         add("handler", model.instruments.handler)
+    bias = _check_bias(doc, fixture)
     station = model.station or (source.stem if source is not None else "bench")
     return BenchConfig(station=station, visa_library=model.visa_library, instruments=instruments,
                        rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
-                       source=source)
+                       source=source, bias=bias)
+
+
+RB_RANGE_OHM = (1e3, 10e9)   # below, no bias current shows; above, the fixture's leakage rules
+SWITCH_CHANNELS = (100, 9999)
+
+
+def _check_bias(doc: YamlDocument, fixture: FixtureSection) -> BiasFixture | None:
+    section = fixture.bias
+    if section is None:
+        return None
+    sites = fixture.sites
+    rb = section.rb if isinstance(section.rb, list) else [section.rb] * sites
+    for key, values in (("rb", rb), ("plus", section.plus), ("minus", section.minus)):
+        if len(values) != sites:
+            raise doc.error(["fixture", "bias", key], f"{len(values)} entries for a {sites}-site fixture",
+                            f"give one per site ({sites})")
+    for i, value in enumerate(rb):
+        if not RB_RANGE_OHM[0] <= value <= RB_RANGE_OHM[1]:
+            raise doc.error(["fixture", "bias", "rb"] + ([i] if isinstance(section.rb, list) else []),
+                            f"{format_quantity(value, 'Ohm')} is outside {format_quantity(RB_RANGE_OHM[0], 'Ohm')}"
+                            f" to {format_quantity(RB_RANGE_OHM[1], 'Ohm')}", "e.g. rb: 100 MOhm")
+    channels = [*section.plus, *section.minus]
+    for i, channel in enumerate(channels):
+        key = "plus" if i < sites else "minus"
+        if not SWITCH_CHANNELS[0] <= channel <= SWITCH_CHANNELS[1] or channel // 100 in (1, 2, 3):
+            raise doc.error(["fixture", "bias", key, i % sites],
+                            f"channel {channel} is not a bias relay (101-399 are power, scanner and load)",
+                            "see docs/bench-commands.md: 401-404 and 501-504 on the demo fixture")
+        if channels.count(channel) > 1:
+            raise doc.error(["fixture", "bias", key, i % sites], f"channel {channel} is listed twice",
+                            "each input of each site has its own relay")
+    return BiasFixture(tuple(rb), tuple(section.plus), tuple(section.minus))
 
 
 def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:
@@ -242,5 +304,5 @@ def _check_dmm_count(doc: YamlDocument, model: BenchFile) -> bool:
     return wanted
 
 
-__all__ = ["BenchConfig", "ConfigError", "InstrumentConfig", "load_bench_config",
+__all__ = ["BenchConfig", "BiasFixture", "ConfigError", "InstrumentConfig", "load_bench_config",
            "parse_bench_config"]

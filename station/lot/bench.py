@@ -144,7 +144,8 @@ def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
                seated: Callable[[int, str | None], None] | None = None) -> Bench:
     """Open, identify and reset every instrument of `config`; raise InstrumentOpenError if one fails."""
     settings = DriverSettings(max_rail_v=config.max_rail_v, compliance_a=config.compliance_a,
-                              line_hz=config.line_hz, sites=config.sites)
+                              line_hz=config.line_hz, sites=config.sites,
+                              bias_channels=config.bias.all_channels if config.bias else ())
     links: dict[str, ScpiLink] = {}
     try:
         for role, instrument in config.instruments.items():

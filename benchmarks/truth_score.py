@@ -43,7 +43,10 @@ def truth_parts(path: Path) -> dict[str, PartTruth]:
             iq_a=row["IQ_A"], noise_v_rthz=row["NOISE_V_RTHZ"], flicker_v=row["FLICKER_V"],
             tau_fast_s=row["TAU_FAST_S"], tau_slow_s=row["TAU_SLOW_S"],
             thermal_v_per_v=row["THERMAL_V_PER_V"],
-            short_ohm=150.0 if row["DEFECT"] == "short" else math.inf)
+            short_ohm=150.0 if row["DEFECT"] == "short" else math.inf,
+            # truth files written before the bias currents existed have no such columns
+            ib_plus_a=float(row.get("IB_PLUS_A", 0.0)), ib_minus_a=float(row.get("IB_MINUS_A", 0.0)),
+            leaky=bool(row.get("LEAKY", 0)))
     return parts
 
 
@@ -71,6 +74,11 @@ def true_results(part: PartTruth, sequence: Sequence, table: LimitTable) -> list
             results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
         elif step.kind == "supply_current":
             results.append(Result("iq", None, part.iq(span), 0))
+        elif step.kind == "bias_current":
+            ios = part.ib_plus_a - part.ib_minus_a
+            results.extend(Result(param, None, value, 0) for param, value in (
+                ("ib_plus", part.ib_plus_a), ("ib_minus", part.ib_minus_a),
+                ("ib", (part.ib_plus_a + part.ib_minus_a) / 2.0), ("ios", ios), ("ios_both", ios)))
     return results
 
 

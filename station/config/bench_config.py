@@ -244,7 +244,7 @@ def _check_bias(doc: YamlDocument, fixture: FixtureSection) -> BiasFixture | Non
             raise doc.error(["fixture", "bias", key, i % sites],
                             f"channel {channel} is not a bias relay (101-399 are power, scanner and load)",
                             "see docs/bench-commands.md: 401-404 and 501-504 on the demo fixture")
-        if channels.count(channel) > 1:
+        if channel in channels[:i]:     # named at its second use
             raise doc.error(["fixture", "bias", key, i % sites], f"channel {channel} is listed twice",
                             "each input of each site has its own relay")
     return BiasFixture(tuple(rb), tuple(section.plus), tuple(section.minus))

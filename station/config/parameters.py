@@ -28,7 +28,13 @@ PARAMETERS: dict[str, ParameterInfo] = {p.name: p for p in [
     ParameterInfo("vos_worst", "V", "step", True, "worst |Vos| inside a transition region"),
     ParameterInfo("aol", "dB", None, True, "open-loop gain, 20 log10 |dVout/dVos|"),
     ParameterInfo("psrr", "dB", None, True, "supply rejection, -20 log10 |dVos/dVs|"),
+    ParameterInfo("ib_plus", "A", None, True, "input bias current of the + input (into the pin positive)"),
+    ParameterInfo("ib_minus", "A", None, True, "input bias current of the - input (into the pin positive)"),
+    ParameterInfo("ib", "A", None, True, "input bias current, mean of the two inputs"),
+    ParameterInfo("ios", "A", None, True, "input offset current Ib+ - Ib-"),
     # Informational rows: logged for offline analysis, never limited.
+    ParameterInfo("ios_both", "A", None, False, "Ios from the reading with both Rb in (consistency check)"),
+    ParameterInfo("vos_rb", "V", None, False, "raw loop offset with Rb in series with none, one or both inputs"),
     ParameterInfo("cmrr_slope", "V/V", "slope", False, "signed least-squares slope dVos/dVcm of a region"),
     ParameterInfo("aol_slope", "V/V", None, False, "signed slope dVos/dVout"),
     ParameterInfo("psrr_slope", "V/V", None, False, "signed slope dVos/dVs"),

@@ -79,6 +79,7 @@ def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> Scre
     context = KindContext(sequence.span_v, table.regions)
     for step in sequence.tests:
         kind_of(step).check(step, sequence, context)
+        kind_of(step).check_bench(step, sequence, bench)
     steps = {step.index: step_tests(step, context) for step in sequence.tests}
     tests = [test for step in sequence.tests for test in steps[step.index].in_order]
     return ScreenPlan(sequence=sequence, table=table, bench=bench, context=context, steps=steps,

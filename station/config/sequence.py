@@ -101,6 +101,7 @@ _TEST_KEYS = {
     "gain": {"levels"},
     "supply_rejection": {"spans"},
     "supply_current": set(),
+    "bias_current": set(),
 }
 _DEFAULT_NAMES = {name: kind.title for name, kind in KINDS.items()}
 

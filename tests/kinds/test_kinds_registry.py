@@ -60,6 +60,18 @@ LOGGED_BEFORE = """\
 5002|PSRR|psrr|
 6001|Iq at nominal supply|iq|
 """
+# Rows added since, after every row above (a new step is appended, so no earlier number moves).
+ADDED_SINCE = """\
+7101|Vos with Rb shunted|vos_rb|
+7102|Vos with Rb in + input|vos_rb|
+7103|Vos with Rb in - input|vos_rb|
+7104|Vos with Rb in both inputs|vos_rb|
+7001|Ib+ (+ input bias current)|ib_plus|
+7002|Ib- (- input bias current)|ib_minus|
+7003|Ib (mean input bias current)|ib|
+7004|Ios (input offset current)|ios|
+7005|Ios from both Rb in (check)|ios_both|
+"""
 
 
 def _demo_context() -> tuple[KindContext, LimitTable]:
@@ -70,7 +82,7 @@ def _demo_context() -> tuple[KindContext, LimitTable]:
 def test_demo_plan_logs_the_same_numbers_and_names_as_before() -> None:
     plan = build_plan(demo_file("benches", "example-bench.yaml"), DEMO_SEQUENCE, DEMO_LIMITS)
     logged = [f"{t.test_num}|{t.test_txt}|{t.param}|{t.region or ''}" for t in plan.tests]
-    assert logged == LOGGED_BEFORE.splitlines()
+    assert logged == LOGGED_BEFORE.splitlines() + ADDED_SINCE.splitlines()
 
 
 def test_every_sequence_kind_is_registered_under_its_own_name() -> None:

@@ -71,6 +71,7 @@ class TestStep:
     points: tuple[RailPoint, ...] = ()   # cm_sweep, in the order written
     levels_v: tuple[float, ...] = ()     # gain: commanded output levels
     spans_v: tuple[float, ...] = ()      # supply_rejection: supply spans
+    applications: str | None = None      # budget: application file, relative to the sequence file
     line: int | None = None              # line of the entry in the sequence file, for errors
 
     def point_vcms(self, span_v: float) -> tuple[float, ...]:
@@ -102,6 +103,7 @@ _TEST_KEYS = {
     "supply_rejection": {"spans"},
     "supply_current": set(),
     "bias_current": set(),
+    "budget": {"applications"},
 }
 _DEFAULT_NAMES = {name: kind.title for name, kind in KINDS.items()}
 
@@ -307,6 +309,11 @@ def _step(read: _Reader, spec: dict, path: list, index: int, kind: str, nplc: fl
             if value <= 0:
                 raise read.doc.error([*path, "spans", j], "a supply span must be above zero")
         return replace(common, spans_v=spans)
+    if kind == "budget":
+        if "applications" not in spec:
+            raise read.doc.error(path, "a budget test needs 'applications'",
+                                 "e.g. applications: ../applications/px401_apps.yaml")
+        return replace(common, applications=read.text(spec["applications"], [*path, "applications"]))
     return common
 
 

@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, ClassVar, Protocol
 
 from station.config.regions import Region
 from station.config.test_catalog import StepRows, StepTests, TestDef
+from station.judge.budget import Application
 from station.judge.measure import Figure
 from station.lot.sweep_order import Condition
 
@@ -37,6 +38,7 @@ class KindContext:
 
     span_v: float                   # the sequence's nominal supply span
     regions: tuple[Region, ...]     # the limit table's common-mode regions, low to high
+    applications: tuple[Application, ...] = ()  # of the budget step's application file
 
 
 @dataclass

@@ -11,6 +11,7 @@ from typing import TYPE_CHECKING
 from station.config.test_catalog import StepRows, StepTests
 from station.kinds.base import KindContext, TestKind
 from station.kinds.bias_current import BiasCurrent
+from station.kinds.budget import ErrorBudget
 from station.kinds.cm_sweep import CommonModeSweep
 from station.kinds.contact import ContactCheck
 from station.kinds.gain import OpenLoopGain
@@ -29,6 +30,7 @@ KINDS: dict[str, TestKind] = {kind.name: kind for kind in (
     SupplyRejection(),
     SupplyCurrent(),
     BiasCurrent(),
+    ErrorBudget(),
 )}
 
 

@@ -451,6 +451,8 @@ def _register_datalog_tools() -> None:
 
     for command in (convert_command, verify_command, summary_command, rebin_command, limits_group):
         main.add_command(command)
+    from station.cli.budget_commands import budget_command
+    main.add_command(budget_command)
 
 
 _register_datalog_tools()

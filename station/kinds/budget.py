@@ -7,6 +7,7 @@ direct sum and the RSS, which a grade may limit, and the four terms.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -79,18 +80,25 @@ class ErrorBudget(TestKind):
         if missing:
             raise ConfigError(sequence.source, f"the budget needs {', '.join(missing)} before it", line=step.line,
                               key=key, hint="put the budget after those tests, or add them")
-        sweep = sequence.steps("cm_sweep")[0]
-        flat = PartFigures(0.0, 0.0, tuple((v, 0.0) for v in sweep.point_vcms(context.span_v)), 0.0, 0.0)
-        names = {r.name for r in context.regions}
+        vcms = sequence.steps("cm_sweep")[0].point_vcms(context.span_v)
         for app in context.applications:
-            if app.name in names:
-                raise ConfigError(sequence.source, f"application {app.name!r} has the name of a common-mode "
-                                  "region", line=step.line, key=key, hint="rename the application")
-            try:
-                part_budget(app, flat, context.span_v, step_regions(context))
-            except BudgetError as exc:
-                raise ConfigError(sequence.source, str(exc), line=step.line, key=key,
-                                  hint="narrow the application, or widen the common-mode sweep") from None
+            problem = application_problem(app, vcms, context)
+            if problem:
+                raise ConfigError(sequence.source, problem, line=step.line, key=key,
+                                  hint="change the application file, or widen the common-mode sweep")
+
+
+def application_problem(app: Application, vcms: Sequence[float], context: KindContext) -> str | None:
+    """Why the parts tested with these common-mode points and regions cannot give `app`'s
+    budget (its supply, its range beyond the sweep, its name taken by a region), or None."""
+    if app.name in {r.name for r in context.regions}:
+        return f"application {app.name!r} has the name of a common-mode region"
+    flat = PartFigures(0.0, 0.0, tuple((v, 0.0) for v in vcms), 0.0, 0.0)
+    try:
+        part_budget(app, flat, context.span_v, step_regions(context))
+    except BudgetError as exc:
+        return str(exc)
+    return None
 
 
 DATALOG_COPY = "applications.yaml"   # the copy in a datalog folder (station/datalog/folder.py)

@@ -16,6 +16,7 @@ from datetime import UTC, datetime
 import numpy as np
 import pandas as pd
 
+from station.review.budget import budget_distribution, logged_budgets
 from station.review.capability import capability, parameter_stats
 from station.review.limits import limits_in_force
 from station.review.load import Datalogs
@@ -40,6 +41,7 @@ class Summary:
     by: str | None = None
     by_table: pd.DataFrame | None = None
     notes: list[str] = field(default_factory=list)
+    budgets: pd.DataFrame | None = None   # per application, when the lot logged budget rows
 
 
 def summarise(logs: Datalogs, by: str | None = None) -> Summary:
@@ -57,6 +59,9 @@ def summarise(logs: Datalogs, by: str | None = None) -> Summary:
         pareto=failure_pareto(parts, logs.bin_names("soft_bins")),
         sites=sites, site_test=site_test, stats=stats, cpk=capability(stats, limits),
         limits_source=limits_source, grade_order=grade_order, notes=list(logs.warnings))
+    logged = logged_budgets(logs.results)
+    if not logged.empty:
+        summary.budgets = budget_distribution(logged)
     if by is not None:
         summary.by = by
         summary.by_table = yield_by(parts, group_key(logs, by), by, grade_order)

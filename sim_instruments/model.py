@@ -114,12 +114,12 @@ def part_noise_rti(part: PartTruth, integration_s: float, rf_ohm: float = 100e3,
 
 def expected_noise_rti(nplc: float, line_hz: float, part: PartTruth, rf_ohm: float = 100e3,
                        rs_ohm: float = 100.0, dmm_range: float = 1.0,
-                       autozero: bool = True) -> float:
+                       autozero: bool = True, rb_in_ohm: float = 0.0) -> float:
     """RMS input-referred noise of one DMM reading of a settled site (what the station
-    can at best reach per reading)."""
+    can at best reach per reading), with `rb_in_ohm` of bias resistors in series."""
     gain = loop_gain(rf_ohm, rs_ohm)
     t = integration_time(nplc, line_hz)
-    node = math.hypot(gain * part_noise_rti(part, t, rf_ohm, rs_ohm),
+    node = math.hypot(gain * part_noise_rti(part, t, rf_ohm, rs_ohm, rb_in_ohm),
                       dmm_own_noise(dmm_range, nplc, autozero))
     return node / gain
 
@@ -131,6 +131,14 @@ def thermal_step_v(before: tuple[float, float, float], after: tuple[float, float
     d_vcm = -((p1 + m1) - (p0 + m0)) / 2.0
     d_span = (p1 - m1) - (p0 - m0)
     return d_vcm + 0.3 * d_span + 0.5 * (o1 - o0)
+
+
+def bias_settle_time_to(error_rti: float, step_rti: float, part: PartTruth, rb_ohm: float,
+                        capacitance_f: float = FIXTURE_CAPACITANCE_F) -> float:
+    """Model seconds after a bias relay operates until a change of the offset by `step_rti`
+    stays within `error_rti`: Rb x C (or the loop, if slower), and the dielectric tail."""
+    tau = max(part.tau_fast_s, rb_ohm * capacitance_f)
+    return settle_time(error_rti, step_rti, tau, BIAS_TAIL_SHARE * step_rti, BIAS_TAIL_S)
 
 
 def settle_time_to(error_rti: float, step_rti: float, part: PartTruth,

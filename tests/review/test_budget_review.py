@@ -76,12 +76,38 @@ def test_an_application_the_lot_cannot_answer_is_refused(lot: Path, tmp_path: Pa
     assert f"{wide}: application 'w' runs on a 12 V supply, wider than the 10 V" in result.output
 
 
-def test_a_limit_on_an_application_the_sequence_does_not_budget_is_refused(tmp_path: Path):
+def _limited(tmp_path: Path, application: str, high: str) -> Path:
+    """The demo limit table with grade A limiting the direct error in `application`."""
+    text = DEMO_LIMITS.read_text(encoding="utf-8")
+    anchor = "      - {param: ios,       low: -2 pA, high: 2 pA, soft_bin: 24, bin: Input offset current}\n"
+    assert anchor in text
+    line = f"      - {{param: app_err, region: {application}, high: {high}, soft_bin: 25, bin: Application error}}\n"
     limits = tmp_path / "limits.yaml"
-    limits.write_text(DEMO_LIMITS.read_text(encoding="utf-8").replace("region: buf_low", "region: buf_high"),
-                      encoding="utf-8")
+    limits.write_text(text.replace(anchor, anchor + line, 1), encoding="utf-8")
+    return limits
+
+
+def test_a_limit_on_an_application_the_sequence_does_not_budget_is_refused(tmp_path: Path):
     with pytest.raises(ConfigError, match="application 'buf_high', which the sequence does not budget"):
-        build_plan(EXAMPLE_BENCH, DEMO_SEQUENCE, limits)
+        build_plan(EXAMPLE_BENCH, DEMO_SEQUENCE, _limited(tmp_path, "buf_high", "60 uV"))
+
+
+def test_a_grade_limits_the_error_in_an_application(tmp_path: Path):
+    # 60 uV in the 0-3.3 V buffer, whose range crosses the crossover: parts with a big step lose grade A
+    out = tmp_path / "lot"
+    result = CliRunner().invoke(main, ["dry-run", "--parts", "8", "--sites", "4", "--seed", "5", "--speed", "20",
+                                       "--out", str(out), "--limits", str(_limited(tmp_path, "buf33", "60 uV"))])
+    assert result.exit_code == 0, result.output
+    results = load_datalogs([out]).results
+    parts = load_datalogs([out]).parts.set_index("PART_ID")
+    errors = results[(results["PARAM"] == "app_err") & (results["REGION"] == "buf33")].set_index("PART_ID")
+    over = errors.index[errors["RESULT"] > 60e-6]
+    assert len(over) >= 1 and len(over) < len(errors)
+    for part_id in over:
+        assert parts.loc[part_id, "GRADE"] != "A", part_id   # over the limit: never grade A
+    graded_a = parts.index[parts["GRADE"] == "A"]
+    assert len(graded_a) >= 1
+    assert all(errors.loc[p, "HI_LIMIT"] == pytest.approx(60e-6) for p in graded_a)  # the limit was applied
 
 
 def test_the_datalog_keeps_the_application_file(lot: Path, tmp_path: Path):

@@ -45,6 +45,8 @@ def fixed_sequence(folder: Path, wait_s: float) -> Path:
     data["settle"] = {"wait": f"{wait_s * 1e3:g} ms"}
     for test in data["tests"]:
         test.pop("settle", None)
+        if "applications" in test:  # relative to the demo sequence, which stays where it is
+            test["applications"] = str(DEMO_SEQUENCE.parent / test["applications"])
     path = folder / "px401_fixed.yaml"
     path.write_text("# Demo sequence with a fixed worst-case settling wait (benchmark).\n"
                     + yaml.safe_dump(data, sort_keys=False), encoding="utf-8")

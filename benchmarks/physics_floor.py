@@ -11,7 +11,10 @@ times), following the station's path through the sequence (station/sweep_order):
   then the integration of the samples (doubled with autozero). Each condition is taken to
   start from the previous one fully settled, its target step and thermal step measured from
   the last condition that was read;
-- Iq: one relay operation per site, plus the rails' slew back to nominal.
+- Iq: one relay operation per site, plus the rails' slew back to nominal;
+- bias current: per Rb state (in the station's visiting order) one relay operation, then
+  each live part's settling through Rb x C and the dielectric tail down to the noise of a
+  reading with that Rb in series, then the integration; one relay to shunt Rb again.
 Handler index time is not in the floor (it is not test time); the station's own round trips,
 computation and datalog writing are what the floor leaves out.
 """
@@ -22,10 +25,13 @@ import math
 from dataclasses import dataclass
 
 from sim_instruments.model import (
+    DEFAULT_RB_OHM,
     FORCE_SETTLE_START_S,
     RELAY_OPERATE_S,
     SATURATED_NODE_V,
     SLEW_V_PER_S,
+    bias_offset_rti,
+    bias_settle_time_to,
     expected_noise_rti,
     loop_gain,
     settle_time_to,
@@ -36,6 +42,7 @@ from sim_instruments.population import PartTruth
 from station.config.rail_points import rails_for
 from station.config.sequence import Sequence, TestStep
 from station.kinds.base import SweepKind
+from station.kinds.bias_current import STATES, VISIT
 from station.kinds.registry import kind_of
 from station.lot.sweep_order import visit_order
 
@@ -48,6 +55,7 @@ class FloorBench:
     rs_ohm: float = 100.0
     line_hz: float = 50.0
     handler_index_s: float = 0.2
+    rb_ohm: float = DEFAULT_RB_OHM
 
 
 def conditions_of(step: TestStep, span: float) -> list[tuple[tuple[float, float], float]]:
@@ -82,6 +90,10 @@ def index_floor(sequence: Sequence, parts: list[PartTruth], bench: FloorBench,
             continue
         if not live:
             continue
+        if step.kind == "bias_current":
+            total += _slew(bench_at, (*nominal, 0.0)) + _bias_floor(step, sequence, live, bench, waits)
+            bench_at = (*nominal, 0.0)
+            continue
         conditions = conditions_of(step, span)
         for i in visit_order(conditions, ((bench_at[0], bench_at[1]), bench_at[2])):
             (v_pos, v_neg), force = conditions[i]
@@ -104,6 +116,29 @@ def index_floor(sequence: Sequence, parts: list[PartTruth], bench: FloorBench,
         # The sweep returns the force to zero; that step joins the next condition's (linear).
         bench_at = (bench_at[0], bench_at[1], 0.0)
     return total
+
+
+def _bias_floor(step: TestStep, sequence: Sequence, live: list[PartTruth], bench: FloorBench,
+                waits: list[float] | None) -> float:
+    """Rb in and out in the kind's own order: each state from the one before, fully settled."""
+    total = 0.0
+    before = {p.part_id: 0.0 for p in live}    # bias offset of the last state (Rb shunted)
+    for i in VISIT:
+        plus, minus = STATES[i]
+        rb_in = bench.rb_ohm * (plus + minus)
+        wait = 0.0
+        for part in live:
+            noise = expected_noise_rti(step.nplc, bench.line_hz, part, bench.rf_ohm, bench.rs_ohm,
+                                       sequence.dmm_range_v, sequence.autozero, rb_in)
+            now = bias_offset_rti(part, bench.rb_ohm * plus, bench.rb_ohm * minus)
+            wait = max(wait, bias_settle_time_to(noise / math.sqrt(step.average), before[part.part_id] - now,
+                                                 part, bench.rb_ohm))
+            before[part.part_id] = now
+        settling = RELAY_OPERATE_S + wait
+        total += settling + _integration(step, sequence, bench)
+        if waits is not None:
+            waits.append(settling)
+    return total + RELAY_OPERATE_S
 
 
 def _contacts(part: PartTruth) -> bool:

@@ -22,8 +22,10 @@ from sim_instruments.model import vos_true
 from sim_instruments.population import PartTruth
 from station.config.limit_tables import LimitTable
 from station.config.sequence import Sequence
+from station.judge.budget import PartFigures
 from station.judge.grading import Result, check_value, contact_verdict, grade_part, limit_for
 from station.kinds.base import KindContext, SweepKind
+from station.kinds.budget import applications_of, budget_values
 from station.kinds.registry import kind_of
 
 NOMINAL_SPAN_V = 10.0
@@ -43,7 +45,10 @@ def truth_parts(path: Path) -> dict[str, PartTruth]:
             iq_a=row["IQ_A"], noise_v_rthz=row["NOISE_V_RTHZ"], flicker_v=row["FLICKER_V"],
             tau_fast_s=row["TAU_FAST_S"], tau_slow_s=row["TAU_SLOW_S"],
             thermal_v_per_v=row["THERMAL_V_PER_V"],
-            short_ohm=150.0 if row["DEFECT"] == "short" else math.inf)
+            short_ohm=150.0 if row["DEFECT"] == "short" else math.inf,
+            # truth files written before the bias currents existed have no such columns
+            ib_plus_a=float(row.get("IB_PLUS_A", 0.0)), ib_minus_a=float(row.get("IB_MINUS_A", 0.0)),
+            leaky=bool(row.get("LEAKY", 0)))
     return parts
 
 
@@ -71,7 +76,29 @@ def true_results(part: PartTruth, sequence: Sequence, table: LimitTable) -> list
             results.extend(Result(f.param, f.region, f.value, 0) for f in figures)
         elif step.kind == "supply_current":
             results.append(Result("iq", None, part.iq(span), 0))
+        elif step.kind == "budget":
+            results.extend(_true_budget(part, sequence, context, results))
+        elif step.kind == "bias_current":
+            ios = part.ib_plus_a - part.ib_minus_a
+            results.extend(Result(param, None, value, 0) for param, value in (
+                ("ib_plus", part.ib_plus_a), ("ib_minus", part.ib_minus_a),
+                ("ib", (part.ib_plus_a + part.ib_minus_a) / 2.0), ("ios", ios), ("ios_both", ios)))
     return results
+
+
+def _true_budget(part: PartTruth, sequence: Sequence, context: KindContext,
+                 so_far: list[Result]) -> list[Result]:
+    """The budget rows from the part's exact offsets at the sweep's points and its true figures."""
+    span = sequence.span_v
+    apps = applications_of(sequence, Path(sequence.source))
+    vcms = sequence.steps("cm_sweep")[0].point_vcms(span)
+    by_param = {r.param: r.value for r in so_far if r.region is None}
+    figures = PartFigures(vos=vos_true(part, 0.0, span), aol_slope=by_param.get("aol_slope", math.nan),
+                          cm_points=tuple((v, vos_true(part, v, span)) for v in vcms),
+                          ib_plus=part.ib_plus_a, ib_minus=part.ib_minus_a)
+    context = KindContext(span, context.regions, apps)
+    return [Result(param, app.name, value, 0) for app in apps
+            for param, value in budget_values(app, figures, context).items()]
 
 
 def true_bin(part: PartTruth, sequence: Sequence, table: LimitTable) -> int:

@@ -33,6 +33,7 @@ class DriverSettings:
     sites: int
     dmm_short_relays: int = 0   # DMMs whose input a fixture relay (401..) can short
     handshake: HandshakeTiming | None = None   # a handler wired through digital I/O lines
+    bias_channels: tuple[int, ...] = ()   # switch channels that put Rb in series with an input
 
 
 class UnknownDriver(KeyError):
@@ -66,7 +67,7 @@ FORCE: Role[ForceSource] = Role("force", {
     "scpi-force-source": lambda link, s: ForceSource(link, s.max_rail_v)})
 DMM: Role[LoopDmm] = Role("dmm", {"scpi-dmm": lambda link, s: LoopDmm(link, s.line_hz)})
 SWITCH: Role[FixtureSwitch] = Role("switch", {
-    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.dmm_short_relays)})
+    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.dmm_short_relays, s.bias_channels)})
 def _dio_handler(link: ScpiLink, settings: DriverSettings) -> DioHandshakeHandler:
     if settings.handshake is None:
         raise UnknownDriver("dio-handshake needs the bench config's handshake section")

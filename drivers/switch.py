@@ -1,5 +1,6 @@
 """The fixture relays: site power (10x), scanner to the first DMM (20x), output load (30x),
-and where the fixture has them, a short across DMM k's input (40k)."""
+and where the fixture has them, a short across DMM k's input (40k) and the bias-resistor
+relays the bench config names (closing one opens the shunt across Rb)."""
 
 from __future__ import annotations
 
@@ -18,7 +19,8 @@ def channel_list(channels: Iterable[int]) -> str:
 
 
 class FixtureSwitch:
-    def __init__(self, link: ScpiLink, sites: int, short_relays: int = 0) -> None:
+    def __init__(self, link: ScpiLink, sites: int, short_relays: int = 0,
+                 bias_channels: Iterable[int] = ()) -> None:
         if not 1 <= sites <= MAX_SITES:
             raise RequestRefused(link.role, "sites", sites, f"1 to {MAX_SITES}")
         if not 0 <= short_relays <= MAX_SITES:
@@ -26,6 +28,7 @@ class FixtureSwitch:
         self.link = link
         self.sites = sites
         self.short_relays = short_relays
+        self.bias_channels = tuple(sorted(bias_channels))
 
     @property
     def role(self) -> str:
@@ -70,7 +73,21 @@ class FixtureSwitch:
     def channels(self) -> list[int]:
         """Every relay of the fixture, bank by bank."""
         return ([bank + s for bank in (POWER, SCANNER, LOAD) for s in range(1, self.sites + 1)]
-                + [SHORT + k for k in range(1, self.short_relays + 1)])
+                + [SHORT + k for k in range(1, self.short_relays + 1)] + list(self.bias_channels))
+
+    def set_bias(self, closed: set[int]) -> None:
+        """Close exactly `closed` of the bias relays (Rb in series), open the others, in one message."""
+        unknown = closed - set(self.bias_channels)
+        if unknown:
+            raise RequestRefused(self.role, "bias channel", min(unknown), f"one of {list(self.bias_channels)}")
+        others = set(self.bias_channels) - closed
+        parts = []
+        if others:
+            parts.append(f"ROUT:OPEN {channel_list(others)}")
+        if closed:
+            parts.append(f"ROUT:CLOS {channel_list(closed)}")
+        if parts:
+            self.link.write_and_wait(";:".join(parts))
 
     def open_all(self) -> None:
         self.link.write_and_wait("ROUT:OPEN:ALL")

@@ -22,7 +22,14 @@ from sim_instruments.force import ForceSource
 from sim_instruments.handler import Handler
 from sim_instruments.hislip_server import HislipServer
 from sim_instruments.instrument import Instrument
-from sim_instruments.model import DEFAULT_COMPLIANCE_A, BenchModel, FixtureSpec
+from sim_instruments.model import (
+    BIAS_MINUS_BANK,
+    BIAS_PLUS_BANK,
+    DEFAULT_COMPLIANCE_A,
+    DEFAULT_RB_OHM,
+    BenchModel,
+    FixtureSpec,
+)
 from sim_instruments.population import TRUTH_COLUMNS, PartTruth, make_population, truth_row
 from sim_instruments.server import CommandRecord, InstrumentServer
 from sim_instruments.study_plan import StudyPlan
@@ -53,6 +60,7 @@ class SimSettings:
     parts: int = 32           # parts in the simulated lot
     rf_ohm: float = 100e3
     rs_ohm: float = 100.0
+    rb_ohm: tuple[float, ...] = (DEFAULT_RB_OHM,)  # bias resistor per site (the last repeats)
     line_hz: float = 50.0
     speed: float = 1.0        # model time per wall time; waits are divided by it
     dmm_per_site: bool = True  # False: one dmm1 reading through scanner relays 201-204
@@ -106,8 +114,9 @@ class SimBench:
         dmms = settings.sites if settings.dmm_per_site else 1
         self.errors = (draw_bench_errors(settings.bench_errors, settings.sites, dmms)
                        if settings.bench_errors is not None else None)
+        rb = tuple(settings.rb_ohm) or (DEFAULT_RB_OHM,)
         self.model = BenchModel(FixtureSpec(settings.sites, settings.rf_ohm, settings.rs_ohm,
-                                            settings.dmm_per_site), ideal=settings.ideal,
+                                            settings.dmm_per_site, rb), ideal=settings.ideal,
                                 errors=self.errors)
         self.command_log: list[CommandRecord] = []
         self._log_lock = threading.Lock()
@@ -242,6 +251,7 @@ class SimBench:
         if not self.resources:
             raise RuntimeError("start the bench first: the resources are known once bound")
         res = self.resources
+        sites = range(1, s.sites + 1)
         dmm_lines = "\n".join(
             f'    - {{resource: "{res[r]}", driver: {DRIVERS["dmm"]}, timeout: 5 s}}'
             for r in sorted((r for r in res if r.startswith("dmm")), key=lambda r: int(r[3:])))
@@ -266,6 +276,10 @@ class SimBench:
             f"  line_frequency: {s.line_hz:g} Hz\n"
             f"  dmm_per_site: {'true' if s.dmm_per_site else 'false'}\n"
             "  dmm_short_relays: true\n"
+            "  bias:                 # Rb in series with each input; a channel opens its shunt\n"
+            f"    rb: [{', '.join(_si(self.model.fixture.rb_of(k), 'Ohm') for k in sites)}]\n"
+            f"    plus: [{', '.join(str(BIAS_PLUS_BANK * 100 + k) for k in sites)}]\n"
+            f"    minus: [{', '.join(str(BIAS_MINUS_BANK * 100 + k) for k in sites)}]\n"
             "safety:\n"
             "  max_rail: 12 V\n"
             f"  current_compliance: {compliance_ma:g} mA\n"

@@ -39,6 +39,13 @@ BOLTZMANN = 1.380649e-23     # J/K, CODATA 2018 exact value
 TEMPERATURE_K = 300.0
 DMM_NOISE_PER_RANGE = 3e-8   # DMM own noise: 3e-8 x range at 1 NPLC, falling as 1/sqrt(NPLC)
 DEFAULT_TAU_S = 2.5e-3       # node time constant when no part is in the loop
+# Bias-current resistors (invented demo fixture): Rb in series with each input, each shunted
+# by a normally-closed relay; channel 5xx (+ input) / 6xx (- input) opens the shunt.
+BIAS_PLUS_BANK, BIAS_MINUS_BANK = 5, 6   # 4xx shorts a DMM's input (bench self-test)
+DEFAULT_RB_OHM = 100e6
+FIXTURE_CAPACITANCE_F = 50e-12   # input node to guard: Rb x C is the settling time constant
+BIAS_TAIL_SHARE = 0.01           # dielectric absorption: 1 % of a step settles slowly...
+BIAS_TAIL_S = 60e-3              # ... with this time constant
 
 
 def loop_gain(rf_ohm: float, rs_ohm: float) -> float:
@@ -83,22 +90,37 @@ def resistor_noise_density(rf_ohm: float, rs_ohm: float) -> float:
     return math.sqrt(4.0 * BOLTZMANN * TEMPERATURE_K * r_parallel)
 
 
+def johnson_density(r_ohm: float, temperature_k: float = TEMPERATURE_K) -> float:
+    """Johnson noise sqrt(4kTR) of one resistor, V/rtHz (407 nV/rtHz for 10 MOhm at 300 K)."""
+    return math.sqrt(4.0 * BOLTZMANN * temperature_k * r_ohm)
+
+
+def bias_offset_rti(part: PartTruth, rb_plus_ohm: float, rb_minus_ohm: float) -> float:
+    """What the bias currents add to the loop's offset reading with Rb in series with the
+    inputs (0 Ohm where the shunt is closed). The reading is V(-in) - V(+in) at the null, and a
+    current flowing into a pin through Rb lowers that pin: + input adds Ib+ Rb, - input takes
+    Ib- Rb away."""
+    return part.ib_plus_a * rb_plus_ohm - part.ib_minus_a * rb_minus_ohm
+
+
 def part_noise_rti(part: PartTruth, integration_s: float, rf_ohm: float = 100e3,
-                   rs_ohm: float = 100.0) -> float:
+                   rs_ohm: float = 100.0, rb_in_ohm: float = 0.0) -> float:
     """RMS input-referred noise of one reading integrating `integration_s` seconds: white
-    density e (part plus resistors) averaged over T gives e/sqrt(2T); plus the 1/f floor."""
-    density_sq = part.noise_v_rthz ** 2 + resistor_noise_density(rf_ohm, rs_ohm) ** 2
+    density e (part plus resistors, with `rb_in_ohm` of bias resistors in series with the
+    inputs) averaged over T gives e/sqrt(2T); plus the 1/f floor."""
+    density_sq = (part.noise_v_rthz ** 2 + resistor_noise_density(rf_ohm, rs_ohm) ** 2
+                  + johnson_density(rb_in_ohm) ** 2)
     return math.sqrt(density_sq / (2.0 * integration_s) + part.flicker_v ** 2)
 
 
 def expected_noise_rti(nplc: float, line_hz: float, part: PartTruth, rf_ohm: float = 100e3,
                        rs_ohm: float = 100.0, dmm_range: float = 1.0,
-                       autozero: bool = True) -> float:
+                       autozero: bool = True, rb_in_ohm: float = 0.0) -> float:
     """RMS input-referred noise of one DMM reading of a settled site (what the station
-    can at best reach per reading)."""
+    can at best reach per reading), with `rb_in_ohm` of bias resistors in series."""
     gain = loop_gain(rf_ohm, rs_ohm)
     t = integration_time(nplc, line_hz)
-    node = math.hypot(gain * part_noise_rti(part, t, rf_ohm, rs_ohm),
+    node = math.hypot(gain * part_noise_rti(part, t, rf_ohm, rs_ohm, rb_in_ohm),
                       dmm_own_noise(dmm_range, nplc, autozero))
     return node / gain
 
@@ -110,6 +132,14 @@ def thermal_step_v(before: tuple[float, float, float], after: tuple[float, float
     d_vcm = -((p1 + m1) - (p0 + m0)) / 2.0
     d_span = (p1 - m1) - (p0 - m0)
     return d_vcm + 0.3 * d_span + 0.5 * (o1 - o0)
+
+
+def bias_settle_time_to(error_rti: float, step_rti: float, part: PartTruth, rb_ohm: float,
+                        capacitance_f: float = FIXTURE_CAPACITANCE_F) -> float:
+    """Model seconds after a bias relay operates until a change of the offset by `step_rti`
+    stays within `error_rti`: Rb x C (or the loop, if slower), and the dielectric tail."""
+    tau = max(part.tau_fast_s, rb_ohm * capacitance_f)
+    return settle_time(error_rti, step_rti, tau, BIAS_TAIL_SHARE * step_rti, BIAS_TAIL_S)
 
 
 def settle_time_to(error_rti: float, step_rti: float, part: PartTruth,
@@ -127,6 +157,14 @@ class FixtureSpec:
     rf_ohm: float = 100e3
     rs_ohm: float = 100.0
     dmm_per_site: bool = True
+    rb_ohm: tuple[float, ...] = (DEFAULT_RB_OHM,) * 4   # bias resistor of each site
+    capacitance_f: float = FIXTURE_CAPACITANCE_F
+
+    def rb_of(self, site: int) -> float:
+        return self.rb_ohm[site - 1] if site <= len(self.rb_ohm) else self.rb_ohm[-1]
+
+    def rb_tau(self, site: int) -> float:
+        return self.rb_of(site) * self.capacitance_f
 
     @property
     def gain(self) -> float:
@@ -198,6 +236,7 @@ class BenchModel:
         self.leak_a: list[float] = [0.0] * fixture.sites   # a failing fixture's leakage per site
         self.nodes = [NodeHistory(SATURATED_NODE_V) for _ in range(fixture.sites)]
         self._conditions = [(0.0, 0.0, 0.0)] * fixture.sites
+        self._bias_rti = [0.0] * fixture.sites   # bias offset in each site's last target
         self.op = self._operating_point()
 
     # --- changes -------------------------------------------------------------------------
@@ -254,7 +293,9 @@ class BenchModel:
         if part is None or self._saturated(site):
             return 0.0
         gain = self.fixture.gain
-        sigma = gain * part_noise_rti(part, integration_s, self.fixture.rf_ohm, self.fixture.rs_ohm)
+        rb_plus, rb_minus = self.rb_in_circuit(site)
+        sigma = gain * part_noise_rti(part, integration_s, self.fixture.rf_ohm, self.fixture.rs_ohm,
+                                      rb_plus + rb_minus)
         if any(self.op.in_limit):
             sigma = math.hypot(sigma, gain * CC_MODE_NOISE_RTI)
         return sigma
@@ -262,6 +303,12 @@ class BenchModel:
     def dmm_shorted(self, dmm_index: int) -> bool:
         """True while relay 40k shorts the input of DMM k."""
         return (400 + dmm_index) in self.relays
+
+    def rb_in_circuit(self, site: int) -> tuple[float, float]:
+        """Bias resistance in series with the + and - inputs of `site` (0: shunt closed)."""
+        rb = self.fixture.rb_of(site)
+        return (rb if BIAS_PLUS_BANK * 100 + site in self.relays else 0.0,
+                rb if BIAS_MINUS_BANK * 100 + site in self.relays else 0.0)
 
     def dmm_site(self, dmm_index: int) -> int | None:
         """Site whose node DMM `dmm_index` (1-based) sees, None for an open input."""
@@ -338,7 +385,9 @@ class BenchModel:
         loaded = (300 + site) in self.relays
         bench_error = (self.errors.site_offset_v[site - 1]
                        + self.errors.leakage_slope(site, self.fixture.rf_ohm, self.fixture.rs_ohm) * vcm)
-        node = self.fixture.gain * (vos_true(part, vcm, span, op.vout, loaded) + bench_error)
+        error = (vos_true(part, vcm, span, op.vout, loaded) + bias_offset_rti(part, *self.rb_in_circuit(site))
+                 + bench_error)
+        node = self.fixture.gain * error
         return max(-SATURATED_NODE_V, min(SATURATED_NODE_V, node))
 
     def _changed(self, now: float, settle_from: float) -> None:
@@ -352,12 +401,22 @@ class BenchModel:
             part = self.seated[k - 1]
             tau = part.tau_fast_s if part else DEFAULT_TAU_S
             extra: tuple[tuple[float, float], ...] = ()
+            bias = 0.0
             if part is not None and self.contact[k - 1]:
                 amp = self.fixture.gain * part.thermal_v_per_v * thermal_step_v(
                     self._conditions[k - 1], conditions)
                 extra = ((amp, part.tau_slow_s), (-amp, part.tau_fast_s))
+                bias = bias_offset_rti(part, *self.rb_in_circuit(k)) if powered else 0.0
             self._conditions[k - 1] = conditions
+            target = self._target(k)
+            bias_step = self.fixture.gain * (self._bias_rti[k - 1] - bias)  # old - new, node volts
+            self._bias_rti[k - 1] = bias
             if self.ideal:
-                self.nodes[k - 1].jump(now, self._target(k))
+                self.nodes[k - 1].jump(now, target)
                 continue
-            self.nodes[k - 1].change(now, self._target(k), t_start, extra, tau)
+            if bias_step and abs(target) < SATURATED_NODE_V:
+                # A bias resistor switched in or out: the inputs charge through Rb x C, and a
+                # small share of the step creeps in with the fixture's dielectric absorption.
+                tau = max(tau, self.fixture.rb_tau(k))
+                extra += ((-BIAS_TAIL_SHARE * bias_step, tau), (BIAS_TAIL_SHARE * bias_step, BIAS_TAIL_S))
+            self.nodes[k - 1].change(now, target, t_start, extra, tau)

@@ -19,6 +19,8 @@ DEFECT_KINDS = ("none", "open", "short", "outlier", "crossover", "pat_outlier")
 PAT_OUTLIER_VOS_V = (100e-6, 140e-6)
 # Cumulative defect shares: 1 % open, 0.5 % short, 1 % offset outlier, 0.5 % bad crossover.
 _DEFECT_EDGES = ((0.010, "open"), (0.015, "short"), (0.025, "outlier"), (0.030, "crossover"))
+IB_TYPICAL_A = 2.0e-12   # invented: a CMOS input's bias current at room temperature
+LEAKY_SHARE = 0.015      # invented: 1.5 % of parts have one input leaking 20-100 pA
 WIDTH_10_90_PER_SCALE = 2.0 * math.log(9.0)  # logistic: 10-90 % width = 2 ln 9 * scale
 
 
@@ -45,6 +47,9 @@ class PartTruth:
     tau_slow_s: float           # thermal tail time constant
     thermal_v_per_v: float      # thermal tail amplitude, RTI volts per volt of rail/output step
     short_ohm: float            # rail-to-rail resistance of a shorted part (inf otherwise)
+    ib_plus_a: float = 0.0      # input bias current into the + input (A, into the pin positive)
+    ib_minus_a: float = 0.0     # input bias current into the - input
+    leaky: bool = False         # an input with ESD-structure leakage far above the population
     binned_hard_bin: int | None = None
     site: int | None = None
 
@@ -89,6 +94,10 @@ def truth_row(part: PartTruth) -> dict[str, object]:
         "TAU_FAST_S": part.tau_fast_s,
         "TAU_SLOW_S": part.tau_slow_s,
         "THERMAL_V_PER_V": part.thermal_v_per_v,
+        "IB_PLUS_A": part.ib_plus_a,
+        "IB_MINUS_A": part.ib_minus_a,
+        "IOS_A": part.ib_plus_a - part.ib_minus_a,
+        "LEAKY": int(part.leaky),
         "BINNED_HARD_BIN": "" if part.binned_hard_bin is None else part.binned_hard_bin,
         "SITE": "" if part.site is None else part.site,
     }
@@ -98,7 +107,7 @@ TRUTH_COLUMNS = (
     "PART_ID", "DEFECT", "RESEAT_FIXES", "VOS_LOW_V", "CM_STEP_V", "CMRR_LOW_VV", "CMRR_HIGH_VV",
     "CMRR_LOW_DB", "CMRR_HIGH_DB", "CROSSOVER_VCM_V", "CROSSOVER_WIDTH_V", "AOL_VV", "AOL_DB",
     "PSRR_VV", "PSRR_DB", "IQ_A", "NOISE_V_RTHZ", "FLICKER_V", "TAU_FAST_S", "TAU_SLOW_S",
-    "THERMAL_V_PER_V", "BINNED_HARD_BIN", "SITE",
+    "THERMAL_V_PER_V", "IB_PLUS_A", "IB_MINUS_A", "IOS_A", "LEAKY", "BINNED_HARD_BIN", "SITE",
 )
 
 
@@ -126,6 +135,15 @@ def make_part(seed: int, index: int, defects: bool = True) -> PartTruth:
     outlier_mag = rng.uniform(0.3e-3, 2e-3) * (1 if rng.random() < 0.5 else -1)
     bad_step = rng.uniform(0.5e-3, 1.5e-3) * (1 if rng.random() < 0.5 else -1)
     short_ohm = rng.uniform(150.0, 250.0)  # ~50 mA at 10 V
+    # Input bias currents (invented, CMOS inputs at room temperature: a few pA, the two inputs
+    # alike to within a fraction of a pA), drawn after every other figure so that earlier
+    # parameters of a seed stay as they were. A small share has one leaky input.
+    ib_common = rng.normal(IB_TYPICAL_A, 1.0e-12)
+    ib_plus = ib_common + rng.normal(0.0, 0.4e-12)
+    ib_minus = ib_common + rng.normal(0.0, 0.4e-12)
+    leaky = bool(rng.random() < LEAKY_SHARE)
+    leak = rng.uniform(20e-12, 100e-12)
+    leak_on_plus = bool(rng.random() < 0.5)
 
     defect = "none"
     if defects:
@@ -140,7 +158,12 @@ def make_part(seed: int, index: int, defects: bool = True) -> PartTruth:
         crossover_below_vplus_v=below_vplus, crossover_width_v=width, aol_vv=aol,
         psrr_vv=psrr, iq_a=iq, noise_v_rthz=noise, flicker_v=flicker,
         tau_fast_s=tau_fast, tau_slow_s=tau_slow, thermal_v_per_v=thermal,
-        short_ohm=math.inf)
+        short_ohm=math.inf, ib_plus_a=ib_plus, ib_minus_a=ib_minus, leaky=leaky)
+    if leaky:
+        if leak_on_plus:
+            part.ib_plus_a += leak
+        else:
+            part.ib_minus_a += leak
     # An open is a contact fault: the part keeps its own Iq, the fixture just cannot reach it.
     if defect == "short":
         part.short_ohm = short_ohm

@@ -465,6 +465,8 @@ def _read_bench_overrides(path: Path, settings) -> dict:
         raise Refused(str(exc)) from None
     settings.sites = config.sites
     settings.rf_ohm, settings.rs_ohm = config.rf_ohm, config.rs_ohm
+    if config.bias is not None:
+        settings.rb_ohm = config.bias.rb_ohm
     settings.dmm_per_site = config.dmm_per_site
     return yaml.safe_load(path.read_text(encoding="utf-8"))
 
@@ -597,6 +599,8 @@ def _register_datalog_tools() -> None:
     from station.cli import screen_commands
 
     screen_commands.register(main, limits_group)
+    from station.cli.budget_commands import budget_command
+    main.add_command(budget_command)
 
 
 _register_datalog_tools()

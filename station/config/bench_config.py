@@ -58,6 +58,7 @@ LoopOhms = Annotated[float, quantity("Ohm", gt=0, le=1e9, why="a servo-loop resi
 # The safety limits' own ranges are checked against the rail supply's in _check_limits, with
 # the supply's range in the message; here only that they are finite quantities.
 Volts = Annotated[float, quantity("V")]
+Ohms = Annotated[float, quantity("Ohm")]   # range checked where it is used (e.g. _check_bias)
 Amps = Annotated[float, quantity("A")]
 
 
@@ -91,6 +92,15 @@ class ResolutionSection(_Strict):
     cmrr_limit: Annotated[float, quantity("dB", gt=0, le=300, why="a fixture's own CMRR")] | None = None
 
 
+class BiasSection(_Strict):
+    """Bias-current resistors: Rb per site (one value for every site, or a list) and, per
+    site, the switch channel that opens the shunt across Rb on the + and on the - input."""
+
+    rb: Ohms | list[Ohms]
+    plus: list[int] = Field(min_length=1)
+    minus: list[int] = Field(min_length=1)
+
+
 class FixtureSection(_Strict):
     rf: LoopOhms
     rs: LoopOhms
@@ -100,6 +110,7 @@ class FixtureSection(_Strict):
     resolution: ResolutionSection | None = None
     # Relays 401.. short the input of DMM 1.. to fixture ground (the self-test's zero check).
     dmm_short_relays: bool = Field(False, strict=True)
+    bias: BiasSection | None = None
 
 
 class SafetySection(_Strict):
@@ -147,6 +158,24 @@ class FixtureResolution:
 
 
 @dataclass(frozen=True)
+class BiasFixture:
+    """Per site (index 0 = site 1): Rb and the channels that put it in series with each input."""
+
+    rb_ohm: tuple[float, ...]
+    plus_channels: tuple[int, ...]
+    minus_channels: tuple[int, ...]
+
+    def channels(self, site: int, plus: bool, minus: bool) -> set[int]:
+        """The channels to close at `site` for Rb in the + and/or - input."""
+        return ({self.plus_channels[site - 1]} if plus else set()) | (
+            {self.minus_channels[site - 1]} if minus else set())
+
+    @property
+    def all_channels(self) -> tuple[int, ...]:
+        return self.plus_channels + self.minus_channels
+
+
+@dataclass(frozen=True)
 class BenchConfig:
     station: str
     visa_library: str
@@ -162,6 +191,7 @@ class BenchConfig:
     resolution: FixtureResolution | None = None   # None: the bench config states none
     dmm_short_relays: bool = False
     handshake: HandshakeTiming | None = None
+    bias: BiasFixture | None = None    # no bias resistors: the bias_current test cannot run
 
     @property
     def loop_gain(self) -> float:
@@ -209,6 +239,7 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
     add("switch", model.instruments.switch)
     if model.instruments.handler is not None:
         add("handler", model.instruments.handler)
+    bias = _check_bias(doc, fixture)
     station = model.station or (source.stem if source is not None else "bench")
     res = fixture.resolution
     resolution = (FixtureResolution(res.dmm_noise, res.nplc, res.cmrr_limit, doc.line_of(["fixture", "resolution"]))
@@ -218,7 +249,7 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
                        source=source, resolution=resolution, dmm_short_relays=fixture.dmm_short_relays,
-                       handshake=_handshake(doc, model))
+                       handshake=_handshake(doc, model), bias=bias)
 
 
 def _handshake(doc: YamlDocument, model: BenchFile) -> HandshakeTiming | None:
@@ -234,6 +265,38 @@ def _handshake(doc: YamlDocument, model: BenchFile) -> HandshakeTiming | None:
         return None
     return HandshakeTiming(section.strobe_width, section.settle, section.start_timeout,
                            section.part_id_prefix)
+
+
+RB_RANGE_OHM = (1e3, 10e9)   # below, no bias current shows; above, the fixture's leakage rules
+SWITCH_CHANNELS = (100, 9999)
+
+
+def _check_bias(doc: YamlDocument, fixture: FixtureSection) -> BiasFixture | None:
+    section = fixture.bias
+    if section is None:
+        return None
+    sites = fixture.sites
+    rb = section.rb if isinstance(section.rb, list) else [section.rb] * sites
+    for key, values in (("rb", rb), ("plus", section.plus), ("minus", section.minus)):
+        if len(values) != sites:
+            raise doc.error(["fixture", "bias", key], f"{len(values)} entries for a {sites}-site fixture",
+                            f"give one per site ({sites})")
+    for i, value in enumerate(rb):
+        if not RB_RANGE_OHM[0] <= value <= RB_RANGE_OHM[1]:
+            raise doc.error(["fixture", "bias", "rb"] + ([i] if isinstance(section.rb, list) else []),
+                            f"{format_quantity(value, 'Ohm')} is outside {format_quantity(RB_RANGE_OHM[0], 'Ohm')}"
+                            f" to {format_quantity(RB_RANGE_OHM[1], 'Ohm')}", "e.g. rb: 100 MOhm")
+    channels = [*section.plus, *section.minus]
+    for i, channel in enumerate(channels):
+        key = "plus" if i < sites else "minus"
+        if not SWITCH_CHANNELS[0] <= channel <= SWITCH_CHANNELS[1] or channel // 100 in (1, 2, 3, 4):
+            raise doc.error(["fixture", "bias", key, i % sites],
+                            f"channel {channel} is not a bias relay (101-499 are power, scanner, load and DMM shorts)",
+                            "see docs/bench-commands.md: 501-504 and 601-604 on the demo fixture")
+        if channel in channels[:i]:     # named at its second use
+            raise doc.error(["fixture", "bias", key, i % sites], f"channel {channel} is listed twice",
+                            "each input of each site has its own relay")
+    return BiasFixture(tuple(rb), tuple(section.plus), tuple(section.minus))
 
 
 def _check_limits(doc: YamlDocument, fixture: FixtureSection, safety: SafetySection) -> None:
@@ -290,5 +353,5 @@ def _check_dmm_count(doc: YamlDocument, model: BenchFile) -> bool:
     return wanted
 
 
-__all__ = ["BenchConfig", "ConfigError", "InstrumentConfig", "load_bench_config",
+__all__ = ["BenchConfig", "BiasFixture", "ConfigError", "InstrumentConfig", "load_bench_config",
            "parse_bench_config"]

@@ -428,6 +428,10 @@ def _check_region(doc: YamlDocument, path: list[str | int], param: str, kind: st
         if region is not None:
             raise doc.error([*path, "region"], f"{param} takes no region", "remove region:")
         return
+    if kind == "application":  # an application's name: the plan checks it against the sequence's
+        if region is None:
+            raise doc.error(path, f"{param} needs a region", "add region: the application's name")
+        return
     allowed = [name for name, k in kinds.items() if k == kind]
     if kind == "slope":
         allowed.append(FULL_RANGE)

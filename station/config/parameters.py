@@ -13,7 +13,8 @@ from dataclasses import dataclass
 class ParameterInfo:
     name: str
     units: str          # units of RESULT in the datalog and of limits in tables
-    region_kind: str | None  # None: no region; "slope": slope regions (+ "full"); "step": transition regions
+    region_kind: str | None  # None: no region; "slope": slope regions (+ "full"); "step": transition
+    #                          regions; "application": an application of the sequence's budget step
     limitable: bool
     description: str
 
@@ -28,7 +29,19 @@ PARAMETERS: dict[str, ParameterInfo] = {p.name: p for p in [
     ParameterInfo("vos_worst", "V", "step", True, "worst |Vos| inside a transition region"),
     ParameterInfo("aol", "dB", None, True, "open-loop gain, 20 log10 |dVout/dVos|"),
     ParameterInfo("psrr", "dB", None, True, "supply rejection, -20 log10 |dVos/dVs|"),
+    ParameterInfo("ib_plus", "A", None, True, "input bias current of the + input (into the pin positive)"),
+    ParameterInfo("ib_minus", "A", None, True, "input bias current of the - input (into the pin positive)"),
+    ParameterInfo("ib", "A", None, True, "input bias current, mean of the two inputs"),
+    ParameterInfo("ios", "A", None, True, "input offset current Ib+ - Ib-"),
+    ParameterInfo("app_err", "V", "application", True, "application error budget, direct sum of its terms (RTI)"),
+    ParameterInfo("app_err_rss", "V", "application", True, "application error budget, root sum of squares (RTI)"),
     # Informational rows: logged for offline analysis, never limited.
+    ParameterInfo("app_err_vos", "V", "application", False, "budget term: offset at the application's common mode"),
+    ParameterInfo("app_err_cm", "V", "application", False, "budget term: offset change over the input range"),
+    ParameterInfo("app_err_out", "V", "application", False, "budget term: output swing / AOL"),
+    ParameterInfo("app_err_ib", "V", "application", False, "budget term: bias current x source resistance"),
+    ParameterInfo("ios_both", "A", None, False, "Ios from the reading with both Rb in (consistency check)"),
+    ParameterInfo("vos_rb", "V", None, False, "raw loop offset with Rb in series with none, one or both inputs"),
     ParameterInfo("cmrr_slope", "V/V", "slope", False, "signed least-squares slope dVos/dVcm of a region"),
     ParameterInfo("aol_slope", "V/V", None, False, "signed slope dVos/dVout"),
     ParameterInfo("psrr_slope", "V/V", None, False, "signed slope dVos/dVs"),

@@ -22,6 +22,7 @@ from station.config.sequence import (
 )
 from station.config.test_catalog import StepTests, TestDef
 from station.kinds.base import KindContext
+from station.kinds.budget import applications_file, applications_of, check_application_limits
 from station.kinds.registry import kind_of, step_tests
 
 
@@ -38,6 +39,7 @@ class ScreenPlan:
     bench_path: Path
 
     test_order: dict[int, int]                  # test number -> position in execution order
+    applications_path: Path | None = None       # the budget step's application file
 
     def order_of(self, test_num: int) -> int:
         """Position of a test number in execution order (unknown numbers last)."""
@@ -81,12 +83,16 @@ def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> Scre
     unresolved = resolution_problems(bench, sequence, table)
     if unresolved:                # a limit the fixture cannot resolve would sort on noise
         raise unresolved[0]
-    context = KindContext(sequence.span_v, table.regions)
+    applications = applications_of(sequence, Path(sequence_path))
+    check_application_limits(table, applications)
+    context = KindContext(sequence.span_v, table.regions, applications)
     for step in sequence.tests:
         kind_of(step).check(step, sequence, context)
+        kind_of(step).check_bench(step, sequence, bench)
     steps = {step.index: step_tests(step, context) for step in sequence.tests}
     tests = [test for step in sequence.tests for test in steps[step.index].in_order]
     return ScreenPlan(sequence=sequence, table=table, bench=bench, context=context, steps=steps,
                       tests=tests, test_order={t.test_num: i for i, t in enumerate(tests)},
                       sequence_path=Path(sequence_path),
-                      limits_path=Path(limits_path), bench_path=Path(bench_path))
+                      limits_path=Path(limits_path), bench_path=Path(bench_path),
+                      applications_path=applications_file(sequence, Path(sequence_path)))

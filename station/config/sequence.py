@@ -80,6 +80,7 @@ class TestStep:
     points: tuple[RailPoint, ...] = ()   # cm_sweep, in the order written
     levels_v: tuple[float, ...] = ()     # gain: commanded output levels
     spans_v: tuple[float, ...] = ()      # supply_rejection: supply spans
+    applications: str | None = None      # budget: application file, relative to the sequence file
     line: int | None = None              # line of the entry in the sequence file, for errors
 
     def point_vcms(self, span_v: float) -> tuple[float, ...]:

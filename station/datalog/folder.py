@@ -35,11 +35,12 @@ MANIFEST = "manifest.json"
 STDF_FILE = "lot.stdf"
 SIM_TRUTH = "sim_truth.csv"
 CONFIG_COPIES = ("sequence", "limits", "bench")        # copied as <key>.yaml at lot start
+OPTIONAL_COPIES = ("applications",)   # copied too when the sequence names one (budget step)
 END_OF_LOT_FILES = (MANIFEST, STDF_FILE, SIM_TRUTH)
 # Every name the station writes into a datalog folder: a folder holding any of these is not
 # overwritten without --force.
 DATALOG_FILES = (LOT_JSON, RESULTS_CSV, PARTS_CSV, MARKER, *END_OF_LOT_FILES,
-                 *(f"{key}.yaml" for key in CONFIG_COPIES))
+                 *(f"{key}.yaml" for key in CONFIG_COPIES + OPTIONAL_COPIES))
 
 HEAD_NUM = 1
 

@@ -17,6 +17,7 @@ from station.datalog.folder import (
     CONFIG_COPIES,
     LOT_JSON,
     MANIFEST,
+    OPTIONAL_COPIES,
     DatalogError,
     sha256_of,
     sha256_of_text,
@@ -135,7 +136,8 @@ def check_config_copies(folder: Path) -> list[str]:
     except (UnicodeDecodeError, json.JSONDecodeError):
         return ["lot.json: not valid JSON (damaged or edited)"]
     problems = []
-    for key in CONFIG_COPIES:
+    recorded = [key for key in OPTIONAL_COPIES if isinstance(lot, dict) and key in lot]
+    for key in (*CONFIG_COPIES, *recorded):
         entry = lot.get(key) if isinstance(lot, dict) else None
         if not isinstance(entry, dict) or not entry.get("sha256"):
             problems.append(f"lot.json: no recorded sha256 for the {key} file")

@@ -190,3 +190,22 @@ def _worst(values: Sequence[float]) -> float:
     if not all(math.isfinite(v) for v in values):
         return math.inf
     return max(abs(v) for v in values)
+
+
+def bias_figures(base: float, plus_open: float, minus_open: float, both_open: float,
+                 rb_ohm: float) -> list[Figure]:
+    """Bias and offset currents from the loop offset with the shunts across Rb closed (`base`),
+    the + shunt open, the - shunt open and both open (MIL-STD-883 method 4001, from memory).
+
+    The loop reads V(-in) - V(+in) at the null, so Rb in the + input adds Ib+ Rb and Rb in the
+    - input takes Ib- Rb away (currents flowing into the pins are positive). Ib is the mean of
+    the two, Ios = Ib+ - Ib-; with both shunts open the reading moves by Ios Rb, logged as a
+    second, independent Ios (the consistency check).
+    """
+    if not rb_ohm > 0:
+        raise MeasurementError(f"bias resistor must be positive, got {rb_ohm!r}")
+    ib_plus = (plus_open - base) / rb_ohm
+    ib_minus = -(minus_open - base) / rb_ohm
+    return [Figure("ib_plus", None, ib_plus, "A"), Figure("ib_minus", None, ib_minus, "A"),
+            Figure("ib", None, (ib_plus + ib_minus) / 2.0, "A"), Figure("ios", None, ib_plus - ib_minus, "A"),
+            Figure("ios_both", None, (both_open - base) / rb_ohm, "A")]

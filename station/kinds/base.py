@@ -20,10 +20,12 @@ from typing import TYPE_CHECKING, Any, ClassVar, Protocol
 from station.config.regions import Region
 from station.config.step_spec import StepSpec
 from station.config.test_catalog import StepRows, StepTests, TestDef
+from station.judge.budget import Application
 from station.judge.measure import Figure
 from station.lot.sweep_order import Condition
 
 if TYPE_CHECKING:  # the sequence module imports the registry: types only, no import cycle
+    from station.config.bench_config import BenchConfig
     from station.config.limit_tables import LimitTable
     from station.config.sequence import Sequence as TestSequence
     from station.config.sequence import TestStep
@@ -37,6 +39,7 @@ class KindContext:
 
     span_v: float                   # the sequence's nominal supply span
     regions: tuple[Region, ...]     # the limit table's common-mode regions, low to high
+    applications: tuple[Application, ...] = ()  # of the budget step's application file
 
 
 @dataclass
@@ -79,6 +82,18 @@ class StepScreen(Protocol):
 
     def reseat(self, site: int) -> None: ...
 
+    def set_bias(self, sites: list[int], plus: bool, minus: bool) -> None:
+        """Rb in series with the + and/or - input of `sites` (False: its shunt closed)."""
+        ...
+
+    def bias_rb(self, site: int) -> float:
+        """The bias resistor of `site` (Ohm), from the bench config."""
+        ...
+
+    def read_offsets(self, step: TestStep, sites: list[int]) -> dict[int, float]:
+        """Settle as the step says, then the input offset (V) of each site, as things stand."""
+        ...
+
 
 class TestKind(ABC):
     """One kind of test: `name` is what a sequence writes under `kind:`."""
@@ -112,6 +127,10 @@ class TestKind(ABC):
 
     def check(self, step: TestStep, sequence: TestSequence, context: KindContext) -> None:
         """Refuse (ConfigError) a step the limit table's regions cannot judge. Nothing by default."""
+        return None
+
+    def check_bench(self, step: TestStep, sequence: TestSequence, bench: BenchConfig) -> None:
+        """Refuse (ConfigError) a step the bench's fixture cannot run. Nothing by default."""
         return None
 
 

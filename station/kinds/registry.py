@@ -10,6 +10,8 @@ from typing import TYPE_CHECKING
 
 from station.config.test_catalog import StepRows, StepTests
 from station.kinds.base import KindContext, TestKind
+from station.kinds.bias_current import BiasCurrent
+from station.kinds.budget import ErrorBudget
 from station.kinds.cm_sweep import CommonModeSweep
 from station.kinds.contact import ContactCheck
 from station.kinds.gain import OpenLoopGain
@@ -27,6 +29,8 @@ KINDS: dict[str, TestKind] = {kind.name: kind for kind in (
     OpenLoopGain(),
     SupplyRejection(),
     SupplyCurrent(),
+    BiasCurrent(),
+    ErrorBudget(),
 )}
 
 

@@ -146,7 +146,8 @@ def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
     settings = DriverSettings(max_rail_v=config.max_rail_v, compliance_a=config.compliance_a,
                               line_hz=config.line_hz, sites=config.sites,
                               dmm_short_relays=len(config.dmm_roles) if config.dmm_short_relays else 0,
-                              handshake=config.handshake)
+                              handshake=config.handshake,
+                              bias_channels=config.bias.all_channels if config.bias else ())
     links: dict[str, ScpiLink] = {}
     try:
         for role, instrument in config.instruments.items():

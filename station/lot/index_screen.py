@@ -63,6 +63,8 @@ class IndexScreen:
         self._force: float | None = None
         self._outputs_on = False
         self._read_back = False        # the next rail setting is read back (after a recovery)
+        self._bias: set[int] = set()   # bias relays closed (Rb in series); None of them at rest
+        self._bias_unsure = False      # after a fault: the bias relays may be in any state
 
     # --- what a kind sees (StepScreen) ---
     @property
@@ -93,6 +95,24 @@ class IndexScreen:
     def reseat(self, site: int) -> None:
         self.bench.handler.reseat(site)
 
+    def set_bias(self, sites: list[int], plus: bool, minus: bool) -> None:
+        bias = self.bench.config.bias
+        if bias is None:
+            raise ValueError("the bench config has no fixture.bias; the plan should have refused this")
+        wanted = set().union(*(bias.channels(site, plus, minus) for site in sites)) if sites else set()
+        if wanted != self._bias or self._bias_unsure:
+            self.bench.switch.set_bias(wanted)
+            self._bias, self._bias_unsure = wanted, False
+
+    def bias_rb(self, site: int) -> float:
+        bias = self.bench.config.bias
+        if bias is None:
+            raise ValueError("the bench config has no fixture.bias")
+        return bias.rb_ohm[site - 1]
+
+    def read_offsets(self, step: TestStep, sites: list[int]) -> dict[int, float]:
+        return self.reader.read(sites, step)
+
     def measure_iq(self, site: int, wait_s: float) -> float:
         self.bench.switch.power_sites({site})
         self.sleep(wait_s)
@@ -116,6 +136,7 @@ class IndexScreen:
         """After a fault the instruments may have lost our settings: set everything again."""
         self._rails = self._force = None
         self._read_back = True
+        self._bias_unsure = self.bench.config.bias is not None
         self.reader.forget_config()
 
     # --- one index ---
@@ -134,6 +155,8 @@ class IndexScreen:
         finally:
             try:
                 self.bench.switch.power_sites(set())  # parts are never handled powered
+                if self._bias or self._bias_unsure:   # the next index starts with Rb shunted
+                    self.set_bias([], False, False)
             except InstrumentError:
                 pass
         return [self._grade(w) for w in work]
@@ -146,6 +169,8 @@ class IndexScreen:
         seq = self.plan.sequence
         self.set_rails(*rails_for(0.0, seq.span_v))
         self.set_force(0.0)
+        if self._bias_unsure:   # no reading is taken with an Rb left in series after a fault
+            self.set_bias([], False, False)
         for step in seq.tests:
             kind = kind_of(step)
             parts = work if kind.checks_contact else [w for w in work if w.live]

@@ -176,8 +176,11 @@ class LotRunner:
         gc.freeze()
         started = False
         try:
-            self.writer.start(self.header(), {"sequence": self.plan.sequence_path,
-                                              "limits": self.plan.limits_path, "bench": self.plan.bench_path})
+            copies = {"sequence": self.plan.sequence_path, "limits": self.plan.limits_path,
+                      "bench": self.plan.bench_path}
+            if self.plan.applications_path is not None:
+                copies["applications"] = self.plan.applications_path
+            self.writer.start(self.header(), copies)
             started = True
             self._tolerant(self.screen.power_up)
             while True:

@@ -49,6 +49,11 @@ def summary_tables(summary: Summary) -> list[Table]:
     if summary.by_table is not None and summary.by:
         tables.append(by_table(summary))
     tables += [stats_table(summary), cpk_table(summary)]
+    if summary.budgets is not None:
+        from station.cli.budget_commands import distribution_table
+
+        tables.append(distribution_table("Application error budget (input-referred), per application",
+                                         summary.budgets))
     return tables
 
 

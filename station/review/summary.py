@@ -16,6 +16,7 @@ from datetime import UTC, datetime
 import numpy as np
 import pandas as pd
 
+from station.review.budget import budget_distribution, logged_budgets
 from station.review.capability import capability, parameter_stats
 from station.review.limits import limits_in_force
 from station.review.load import Datalogs
@@ -42,6 +43,7 @@ class Summary:
     by_table: pd.DataFrame | None = None
     notes: list[str] = field(default_factory=list)
     screening: ScreenReview | None = None   # lot-control alarms and PAT (station/screen/review.py)
+    budgets: pd.DataFrame | None = None   # per application, when the lot logged budget rows
 
 
 def summarise(logs: Datalogs, by: str | None = None) -> Summary:
@@ -60,6 +62,9 @@ def summarise(logs: Datalogs, by: str | None = None) -> Summary:
         sites=sites, site_test=site_test, stats=stats, cpk=capability(stats, limits),
         limits_source=limits_source, grade_order=grade_order, notes=list(logs.warnings),
         screening=screen_review(logs))
+    logged = logged_budgets(logs.results)
+    if not logged.empty:
+        summary.budgets = budget_distribution(logged)
     if by is not None:
         summary.by = by
         summary.by_table = yield_by(parts, group_key(logs, by), by, grade_order)

@@ -23,10 +23,11 @@ def test_physics_floor_holds_at_least_the_integrations():
     # N NPLC at 50 Hz take N/50 s (common practice, no source).
     integrations = sum(t.nplc / 50.0 * t.average * len(t.points or t.levels_v or t.spans_v or [0])
                        for t in sequence.tests if t.kind in ("offset", "cm_sweep", "gain", "supply_rejection"))
+    integrations += sum(t.nplc / 50.0 * t.average * 4 for t in sequence.steps("bias_current"))  # 4 Rb states
     waits: list[float] = []
     floor = index_floor(sequence, [part], FloorBench(), waits)
-    assert floor == pytest.approx(integrations + sum(waits) + 0.003, abs=0.01)  # + a few relay times
-    assert len(waits) == 1 + 15 + 2 + 2 and all(w >= 0 for w in waits)
+    assert floor == pytest.approx(integrations + sum(waits) + 0.004, abs=0.01)  # + a few relay times
+    assert len(waits) == 1 + 15 + 2 + 2 + 4 and all(w >= 0 for w in waits)
     assert worst_case_wait(sequence, [part], FloorBench()) >= max(waits)
 
 

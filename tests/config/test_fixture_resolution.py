@@ -26,6 +26,7 @@ fixture:
   rs: 100 Ohm
   sites: 1
   line_frequency: 50 Hz
+  bias: {{rb: 100 MOhm, plus: [501], minus: [601]}}   # the demo sequence's bias_current test
 {resolution}
 safety:
   max_rail: 12 V

@@ -29,7 +29,7 @@ tests:
 def test_demo_sequence_loads_with_rail_relative_points() -> None:
     seq = load_sequence(DEMO_SEQUENCE)
     assert [t.kind for t in seq.tests] == ["contact", "offset", "cm_sweep", "gain", "supply_rejection",
-                                           "supply_current"]
+                                           "supply_current", "bias_current", "budget"]
     sweep = seq.steps("cm_sweep")[0]
     vcms = sweep.point_vcms(seq.span_v)
     # "V- - 0.1 V" at a 10 V span is 0.1 V below the lower rail: -5.1 V from the mid-point.

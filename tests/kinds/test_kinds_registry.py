@@ -60,6 +60,42 @@ LOGGED_BEFORE = """\
 5002|PSRR|psrr|
 6001|Iq at nominal supply|iq|
 """
+# Rows added since, after every row above (a new step is appended, so no earlier number moves).
+ADDED_SINCE = """\
+7101|Vos with Rb shunted|vos_rb|
+7102|Vos with Rb in + input|vos_rb|
+7103|Vos with Rb in - input|vos_rb|
+7104|Vos with Rb in both inputs|vos_rb|
+7001|Ib+ (+ input bias current)|ib_plus|
+7002|Ib- (- input bias current)|ib_minus|
+7003|Ib (mean input bias current)|ib|
+7004|Ios (input offset current)|ios|
+7005|Ios from both Rb in (check)|ios_both|
+8001|buf33: error, direct sum|app_err|buf33
+8002|buf33: error, RSS|app_err_rss|buf33
+8003|buf33: offset term|app_err_vos|buf33
+8004|buf33: common-mode term|app_err_cm|buf33
+8005|buf33: output term|app_err_out|buf33
+8006|buf33: bias term|app_err_ib|buf33
+8007|buf_low: error, direct sum|app_err|buf_low
+8008|buf_low: error, RSS|app_err_rss|buf_low
+8009|buf_low: offset term|app_err_vos|buf_low
+8010|buf_low: common-mode term|app_err_cm|buf_low
+8011|buf_low: output term|app_err_out|buf_low
+8012|buf_low: bias term|app_err_ib|buf_low
+8013|gain10: error, direct sum|app_err|gain10
+8014|gain10: error, RSS|app_err_rss|gain10
+8015|gain10: offset term|app_err_vos|gain10
+8016|gain10: common-mode term|app_err_cm|gain10
+8017|gain10: output term|app_err_out|gain10
+8018|gain10: bias term|app_err_ib|gain10
+8019|inv5: error, direct sum|app_err|inv5
+8020|inv5: error, RSS|app_err_rss|inv5
+8021|inv5: offset term|app_err_vos|inv5
+8022|inv5: common-mode term|app_err_cm|inv5
+8023|inv5: output term|app_err_out|inv5
+8024|inv5: bias term|app_err_ib|inv5
+"""
 
 
 def _demo_context() -> tuple[KindContext, LimitTable]:
@@ -70,7 +106,7 @@ def _demo_context() -> tuple[KindContext, LimitTable]:
 def test_demo_plan_logs_the_same_numbers_and_names_as_before() -> None:
     plan = build_plan(demo_file("benches", "example-bench.yaml"), DEMO_SEQUENCE, DEMO_LIMITS)
     logged = [f"{t.test_num}|{t.test_txt}|{t.param}|{t.region or ''}" for t in plan.tests]
-    assert logged == LOGGED_BEFORE.splitlines()
+    assert logged == LOGGED_BEFORE.splitlines() + ADDED_SINCE.splitlines()
 
 
 def test_every_sequence_kind_is_registered_under_its_own_name() -> None:

@@ -28,6 +28,9 @@ PARTS = 40
 # practice, no source: a few times the RMS errors against the truth that the benchmark
 # reports for this sequence (vos ~40 nV, high-region CMRR slope ~0.1 uV/V, AOL ~0.25 dB).
 GUARD = {"V": 0.5e-6, "A": 5e-6, "dB": 3.0}
+# Bias currents are in A too, but pA-sized: a few times the Rb noise of the sequence's
+# readings (about 0.03 pA RMS with 100 MOhm, 4 x 20 ms).
+GUARD_BY_PARAM = {"ib": 0.2e-12, "ios": 0.2e-12}
 FEWEST_DECIDED = 34   # of 40: at most a handful of parts may sit within the guard bands
 
 
@@ -53,7 +56,8 @@ def _true_verdict(part: PartTruth, folder: Path, table: LimitTable) -> tuple[Ver
                 if (limit.param, limit.region) != (result.param, result.region):
                     continue
                 for bound in (limit.low, limit.high):
-                    near = near or (bound is not None and abs(result.value - bound) < GUARD[limit.units])
+                    near = near or (bound is not None and abs(result.value - bound)
+                                          < GUARD_BY_PARAM.get(limit.param, GUARD[limit.units]))
     return grade_part(results, table), near
 
 

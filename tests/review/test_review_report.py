@@ -34,11 +34,11 @@ def test_single_file_with_every_plot_inlined(report: Path) -> None:
     assert "Yield by hour (UTC)" in titles
     assert any(t.startswith("Vos versus common mode") for t in titles)
     histograms = [t for t in titles if t.startswith("Histogram: ")]
-    # One per limited parameter and region of the PX-401 table: iq, vos, aol, psrr,
-    # cmrr low/high/full, cm_step and vos_worst in the transition.
+    # One per limitable parameter and region logged: iq, vos, aol, psrr, cmrr low/high/full,
+    # cm_step and vos_worst in the transition, and the bias currents Ib+, Ib-, Ib and Ios.
     assert sorted(histograms) == sorted(f"Histogram: {p}" for p in [
         "aol", "cm_step transition", "cmrr full", "cmrr high", "cmrr low", "iq", "psrr", "vos",
-        "vos_worst transition"])
+        "vos_worst transition", "ib", "ib_minus", "ib_plus", "ios"])
     assert {t.split()[1] for t in histograms} <= LIMITABLE
     assert len(images) == 4 + len(histograms)
     # Self-contained: nothing fetched from anywhere.

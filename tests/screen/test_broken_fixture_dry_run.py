@@ -20,6 +20,8 @@ ARGS = ["--parts", "80", "--sites", "4", "--seed", "3", "--speed", "1000"]
 
 def _sequence(tmp_path: Path, action: str) -> Path:
     path = tmp_path / f"seq_{action}.yaml"
+    # The demo sequence's budget step reads its application file beside the sequence.
+    (tmp_path / "px401_apps.yaml").write_text((ROOT / "sequences" / "px401_apps.yaml").read_text())
     path.write_text((ROOT / "sequences" / "px401_screen.yaml").read_text()
                     + f"lot_control:\n  - {{rule: consecutive_fails, count: {COUNT}, action: {action}}}\n")
     return path

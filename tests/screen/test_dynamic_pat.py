@@ -26,7 +26,8 @@ def _results(vos: float) -> list[Result]:
     return [Result("iq", None, 450e-6, 1), Result("vos", None, vos, 2), Result("cmrr", "low", 130.0, 3),
             Result("cmrr", "high", 118.0, 4), Result("cm_step", "transition", 40e-6, 5),
             Result("vos_worst", "transition", 60e-6, 6), Result("cmrr", "full", 105.0, 7),
-            Result("aol", None, 130.0, 8), Result("psrr", None, 130.0, 9)]
+            Result("aol", None, 130.0, 8), Result("psrr", None, 130.0, 9),
+            Result("ib", None, 2e-12, 10), Result("ios", None, 1e-12, 11)]
 
 
 def test_baseline_limits_screen_later_parts_and_rescreen_the_baseline() -> None:

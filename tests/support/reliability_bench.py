@@ -40,6 +40,7 @@ tests:
   - {kind: gain, levels: [-3 V, 3 V], average: 2}
   - {kind: supply_rejection, spans: [8 V, 12 V], average: 2}
   - {kind: supply_current}
+  - {kind: bias_current, settle: {wait: 30 ms}}
 """
 
 

@@ -110,6 +110,12 @@ def part_rows(true: dict[str, float], table: LimitTable, rng: np.random.Generato
     for i, f in enumerate(measure.psrr_figures(spans.tolist(), vos_span.tolist())):
         rows.append((5001 + i, f.param, f.param, None, 0.0, None, f.value, f.units))
     rows.append((6001, "Iq at nominal supply", "iq", None, 0.0, None, true["iq"], "A"))
+    # Bias currents (invented, a few pA) from a generator of their own, so that every figure
+    # above keeps the values it had before these rows existed.
+    ib_rng = np.random.default_rng(int(abs(true["iq"]) * 1e18) % (1 << 62))
+    ib_plus, ib_minus = (float(v) for v in 2e-12 + ib_rng.normal(0.0, 0.3e-12, 2))
+    for i, f in enumerate(measure.bias_figures(0.0, ib_plus * 1e8, -ib_minus * 1e8, (ib_plus - ib_minus) * 1e8, 1e8)):
+        rows.append((7001 + i, f.param, f.param, None, 0.0, None, f.value, f.units))
     return rows
 
 

@@ -289,6 +289,14 @@ _STORE = click.option(
     "--store", "store_url", default=None,
     help="Also publish each part to this fleet store (PostgreSQL URL), from a background worker; "
          "the lot never waits for it.")
+# Options that more than one command takes, written once.
+_PAT_BASELINE = click.option(
+    "--pat-baseline", type=click.Path(path_type=Path), default=None,
+    help="Dynamic PAT limits from this earlier lot's datalog instead of this lot's first parts.")
+_FIXTURE_FAULT = click.option(
+    "--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
+    help="Break the simulated fixture mid-lot: contact:2@40 (site 2 loses contact from part 40), "
+         "leakage:3@100:5uA (site 3 leaks 5 uA more per part from part 100). Repeatable.")
 _RESUME = click.option(
     "--resume", "resume_dir", type=click.Path(path_type=Path), default=None,
     help="Continue the interrupted lot logged in this folder (parts logged are not tested again).")
@@ -319,11 +327,8 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @click.option("--inject-outliers", "outlier_share", type=click.FloatRange(0.0, 0.2), default=0.0,
               help="Share of the simulated parts given an offset inside the limits but far from the "
                    "population (invented outliers, for outlier screening).")
-@click.option("--pat-baseline", type=click.Path(path_type=Path), default=None,
-              help="Dynamic PAT limits from this earlier lot's datalog instead of this lot's first parts.")
-@click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
-              help="Break the simulated fixture mid-lot: contact:2@40 (site 2 loses contact from part 40), "
-                   "leakage:3@100:5uA (site 3 leaks 5 uA more per part from part 100). Repeatable.")
+@_PAT_BASELINE
+@_FIXTURE_FAULT
 @click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip|vxi11",
               help="How the simulated instruments are served: raw SCPI sockets (default), HiSLIP, or VXI-11 "
                    "without the portmapper (pyvisa-py only); ROLE=... for one instrument (repeatable).")
@@ -481,8 +486,7 @@ def _read_bench_overrides(path: Path, settings) -> dict:
 @click.option("--parts", "expected_parts", type=click.IntRange(1), default=None, help="Expected lot size, for the progress bar.")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
-@click.option("--pat-baseline", type=click.Path(path_type=Path), default=None,
-              help="Dynamic PAT limits from this earlier lot's datalog instead of this lot's first parts.")
+@_PAT_BASELINE
 @_RESUME
 @_MAX_FAULTS
 @click.option("--correlation", "correlation_dir", type=click.Path(path_type=Path), default=None,
@@ -544,8 +548,7 @@ def sim_group() -> None:
 @click.option("--bench-errors", "bench_seed", type=int, default=None,
               help="Give the bench its own errors (site offset, DMM gain, leakage) from this seed; "
                    "with --truth they are written to <truth>.bench.json.")
-@click.option("--fixture-fault", "fixture_faults", multiple=True, metavar="KIND:SITE@PART[:STEP]",
-              help="Break the fixture mid-lot: contact:2@40, leakage:3@100:5uA (repeatable).")
+@_FIXTURE_FAULT
 @click.option("--transport", "transports", multiple=True, metavar="[ROLE=]socket|hislip|vxi11",
               help="How the simulated instruments are served: raw SCPI sockets (default), HiSLIP, or VXI-11 "
                    "without the portmapper (pyvisa-py only); ROLE=... for one instrument (repeatable).")

@@ -7,7 +7,9 @@ the store by host, port, database and user only.
 
 from __future__ import annotations
 
+import dataclasses
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
 from rich.console import Console
@@ -15,6 +17,9 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
 from station.datalog.folder import DatalogError
 from station.store.connect import StoreError, connect, shown
+
+if TYPE_CHECKING:
+    from station.store.summary_sql import Selection
 
 STORE_HELP = ("PostgreSQL store: a URL (postgresql://user@host:5432/db) or conninfo (service=NAME); "
               "the password may come from PGPASSWORD, ~/.pgpass or a service file.")
@@ -93,13 +98,13 @@ def _publish(conn, url: str, data, batch_parts: int, after_batch):
                          "publish again to resume)") from None
 
 
-def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path | None, since: str | None,
+def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path | None, window: Selection,
                      station: str | None, product: str | None, by: str | None, csv_file: Path | None,
                      html_file: Path | None) -> None:
     """`station summary --store URL` or `--parquet DIR`: the summary computed by the database."""
     from station.review.console import print_summary
     from station.review.export import write_csv
-    from station.store.summary_sql import Selection, parse_since, summarise_sql
+    from station.store.summary_sql import summarise_sql
 
     if datalogs:
         raise BadInput("give either datalog folders or --store/--parquet, not both")
@@ -108,11 +113,7 @@ def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path 
     if html_file is not None:
         raise BadInput("--html is made from folders only for now (its plots need every row): "
                        "give the folders, or use --csv")
-    try:
-        since_t = parse_since(since) if since else None
-    except ValueError as exc:
-        raise BadInput(f"--since {exc}") from None
-    selection = Selection(since_t=since_t, station=station, product=product)
+    selection = dataclasses.replace(window, station=station, product=product)
     console = Console(width=None if Console().is_terminal else 160)
     if url is not None:
         import psycopg

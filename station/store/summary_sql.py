@@ -43,10 +43,14 @@ class Selection:
     since_t: float | None = None     # parts that ended at or after this Unix time
     station: str | None = None
     product: str | None = None
+    until_t: float | None = None     # ... and before this one (a shift's end)
+    window: str | None = None        # the window in words (a shift), for the notes
 
     def describe(self) -> str:
         parts = []
-        if self.since_t is not None:
+        if self.window is not None:
+            parts.append(f"parts ended in the {self.window}")
+        elif self.since_t is not None:
             parts.append(f"parts ended since {datetime.fromtimestamp(self.since_t, UTC):%Y-%m-%d %H:%M} UTC")
         if self.station is not None:
             parts.append(f"station {self.station}")
@@ -81,19 +85,20 @@ def _ctes(sel: Selection) -> tuple[str, list]:
         where.append("product = %s")
         params.append(sel.product)
     part_where = ""
+    window: list[float] = []
     if sel.since_t is not None:
-        where.append("lot_key IN (SELECT lot_key FROM parts WHERE end_t >= %s)")
-        params.append(sel.since_t)
-        part_where = "WHERE p.end_t >= %s"
+        ends = "end_t >= %s" + (" AND end_t < %s" if sel.until_t is not None else "")
+        window = [sel.since_t] + ([sel.until_t] if sel.until_t is not None else [])
+        where.append(f"lot_key IN (SELECT lot_key FROM parts WHERE {ends})")
+        params.extend(window)
+        part_where = "WHERE p." + ends.replace(" AND end_t", " AND p.end_t")
     lots = "SELECT lot_key, station, lot_id, product, start_t, end_t, limits_sha256 FROM lot_list"
     if where:
         lots += " WHERE " + " AND ".join(where)
     sql = f"""WITH sel_lots AS ({lots}),
     sel_parts AS (SELECT p.*, l.station, l.lot_id FROM parts p JOIN sel_lots l ON p.lot_key = l.lot_key
                   {part_where})"""
-    if sel.since_t is not None:
-        params.append(sel.since_t)
-    return sql, params
+    return sql, params + window
 
 
 def _results_cte(engine: Engine, sel: Selection, lot_keys: list[int] | None) -> tuple[str, list]:

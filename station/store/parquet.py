@@ -3,7 +3,7 @@
 Layout of an export folder (every file named by the lot's key, so exporting a lot again
 replaces its files, never adds a second copy):
 
-    lots/<key>.parquet                 one row: key, station, lot id, product, times, limits SHA-256
+    lots/<key>.parquet                 one row: key, station, lot id, product, times, limits SHA-256, lot.json
     bins/<key>.parquet                 bin names and pass flags of the lot
     applied_files/<sha256>.parquet     the limit table (and sequence, bench) the lot applied
     parts/product=<P>/month=<YYYY-MM>/<key>.parquet
@@ -18,6 +18,7 @@ store's table names at these files and runs the store's SQL summary on them.
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
@@ -40,7 +41,8 @@ TABLES = ("lots", "bins", "applied_files", "parts", "results")
 class LotExport:
     """One lot's rows, ready to write."""
 
-    lot: dict                  # lot_key, station, lot_id, product, start_t, end_t, start_time, limits_sha256, complete
+    lot: dict                  # lot_key, station, lot_id, product, start_t, end_t, start_time, limits_sha256,
+                               # complete, header (lot.json as text, for the report)
     bins: pd.DataFrame         # kind, bin, name, passing
     files: list[tuple[str, str, str]]   # (sha256, kind, content)
     parts: pd.DataFrame        # the store's part columns
@@ -71,7 +73,7 @@ def from_folder(folder: Path) -> LotExport:
     return LotExport(
         {"lot_key": lot_uid(lot), "station": station, "lot_id": lot_id, "product": str(lot.get("product") or ""),
          "start_t": start_t, "end_t": end_t, "start_time": start_time, "limits_sha256": limits_sha,
-         "complete": bool(lot.get("complete", False))},
+         "complete": bool(lot.get("complete", False)), "header": json.dumps(lot)},
         bins, [(sha, kind, text) for kind, (sha, text) in data.files.items()],
         part_frame(data.parts), result_frame(data.results))
 
@@ -97,7 +99,7 @@ def from_store(conn) -> Iterator[LotExport]:
         yield LotExport(
             {"lot_key": lot_uid(header), "station": station, "lot_id": lot_id, "product": row.product,
              "start_t": _float(row.start_t), "end_t": _float(row.end_t), "start_time": start_time,
-             "limits_sha256": limits_sha, "complete": bool(row.complete)},
+             "limits_sha256": limits_sha, "complete": bool(row.complete), "header": json.dumps(header)},
             bins, [(str(r.sha256), str(r.kind), str(r.content)) for r in files.itertuples()],
             _typed_parts(parts), _typed_results(results))
 
@@ -136,7 +138,8 @@ RESULT_SCHEMA = pa.schema([("lot_key", pa.int64()), ("part_seq", pa.int32()), ("
                            ("pass", pa.int16()), ("grade", pa.string())])
 LOT_SCHEMA = pa.schema([("lot_key", pa.int64()), ("station", pa.string()), ("lot_id", pa.string()),
                         ("product", pa.string()), ("start_t", pa.float64()), ("end_t", pa.float64()),
-                        ("start_time", pa.string()), ("limits_sha256", pa.string()), ("complete", pa.bool_())])
+                        ("start_time", pa.string()), ("limits_sha256", pa.string()), ("complete", pa.bool_()),
+                        ("header", pa.string())])
 
 
 def _write(table: pa.Table, path: Path) -> None:
@@ -194,7 +197,11 @@ def open_history(folder: Path):
                            "station export --to parquet)")
     conn = duckdb.connect()
     root = str(folder).replace("'", "''")     # a path in a string literal: quotes doubled
-    conn.execute(f"CREATE VIEW lot_list AS SELECT * FROM read_parquet('{root}/lots/*.parquet')")
+    # union_by_name: lot files written before the header column read it as NULL.
+    lots = f"read_parquet('{root}/lots/*.parquet', union_by_name = true)"
+    columns = {row[0] for row in conn.execute(f"DESCRIBE SELECT * FROM {lots}").fetchall()}
+    extra = "" if "header" in columns else ", NULL::VARCHAR AS header"
+    conn.execute(f"CREATE VIEW lot_list AS SELECT *{extra} FROM {lots}")
     for name in ("parts", "results"):
         files = list((folder / name).glob("*/*/*.parquet"))
         if files:

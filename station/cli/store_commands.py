@@ -180,11 +180,12 @@ def export_command(datalogs: tuple[Path, ...], url: str | None, target: tuple[st
     console = Console(stderr=True)
     lots = 0
 
-    def told(lot, rows: int) -> None:
+    def told(lot, written) -> None:
         nonlocal lots
         lots += 1
-        console.print(f"lot {lot.lot['lot_id']} of {lot.lot['station']}: {len(lot.parts)} parts, {rows} results",
-                      markup=False, highlight=False)
+        how = "written" if written.rewritten else f"{written.new_parts} new"
+        console.print(f"lot {lot.lot['lot_id']} of {lot.lot['station']}: {written.parts} parts ({how}), "
+                      f"{written.new_results} results written", markup=False, highlight=False)
 
     if url is None:
         for folder in datalogs:

@@ -68,8 +68,8 @@ def _refuse_unwritable(option: str, target: Path | None) -> None:
 
 @click.command("summary")
 @click.argument("datalogs", nargs=-1, required=False, type=click.Path(path_type=Path))
-@click.option("--by", type=click.Choice(["site", "lot", "station", "hour"]), default=None,
-              help="Add a yield table grouped this way.")
+@click.option("--by", type=click.Choice(["site", "lot", "station", "hour", "shift"]), default=None,
+              help="Add a yield table grouped this way (shift: by the floor's shift calendar).")
 @click.option("--csv", "csv_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write every figure to one tidy CSV (a 'section' column says which table).")
 @click.option("--html", "html_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
@@ -96,19 +96,24 @@ def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path |
 
     for option, target in (("--csv", csv_file), ("--html", html_file)):
         _refuse_unwritable(option, target)   # before the work, not after printing it all
+    if shifts_file is not None and not shift and by != "shift":
+        raise BadInput("--shifts names the calendar for --shift or --by shift: give one of them too")
     if store_url is not None or parquet_dir is not None:
         from station.cli.store_commands import database_summary
 
-        window = _window(since, shift, shifts_file)
-        database_summary(datalogs, store_url, parquet_dir, window, station_name, product, by, csv_file, html_file)
+        calendar = _calendar(shifts_file) if shift or by == "shift" else None
+        window = _window(since, shift, calendar)
+        database_summary(datalogs, store_url, parquet_dir, window, station_name, product, by, csv_file, html_file,
+                         calendar)
         return
     if not datalogs:
         raise BadInput("give one or more datalog folders, or --store URL, or --parquet DIR")
     if since or shift or station_name or product:
         raise BadInput("--since, --shift, --station and --product select from --store or --parquet (give one)")
     console = _console()
+    calendar = _calendar(shifts_file) if by == "shift" else None
     logs = _read(datalogs, console)
-    summary = summarise(logs, by=by)
+    summary = summarise(logs, by=by, shifts=calendar)
     print_summary(summary, console)
     try:
         if csv_file is not None:
@@ -123,18 +128,23 @@ def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path |
         raise BadInput(f"cannot write: {exc}") from None
 
 
-def _window(since: str | None, shift: str | None, shifts_file: Path | None):
-    """The --since or --shift window as a Selection without station and product."""
+def _calendar(shifts_file: Path | None):
+    """The floor's shift calendar (--shifts FILE or $STATION_SHIFTS); a bad one is refused at its line."""
     import os
-    import time
 
     from station.config.shifts import calendar_path, load_shift_calendar
+
+    return load_shift_calendar(calendar_path(shifts_file, dict(os.environ)))
+
+
+def _window(since: str | None, shift: str | None, calendar):
+    """The --since or --shift window as a Selection without station and product."""
+    import time
+
     from station.store.summary_sql import Selection, parse_since
 
     if since and shift:
         raise BadInput("give --since or --shift, not both")
-    if shifts_file is not None and not shift:
-        raise BadInput("--shifts names the calendar for --shift: give --shift NAME too")
     if since:
         try:
             return Selection(since_t=parse_since(since))
@@ -142,7 +152,6 @@ def _window(since: str | None, shift: str | None, shifts_file: Path | None):
             raise BadInput(f"--since {exc}") from None
     if not shift:
         return Selection()
-    calendar = load_shift_calendar(calendar_path(shifts_file, dict(os.environ)))   # ConfigError: exit 2
     try:
         found = calendar.window(shift, now=time.time())
     except ValueError as exc:

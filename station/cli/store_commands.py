@@ -21,6 +21,7 @@ from station.datalog.folder import DatalogError
 from station.store.connect import StoreError, connect, shown
 
 if TYPE_CHECKING:
+    from station.config.shifts import ShiftCalendar
     from station.store.summary_sql import Engine, Selection
 
 STORE_HELP = ("PostgreSQL store: a URL (postgresql://user@host:5432/db) or conninfo (service=NAME); "
@@ -102,7 +103,7 @@ def _publish(conn, url: str, data, batch_parts: int, after_batch):
 
 def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path | None, window: Selection,
                      station: str | None, product: str | None, by: str | None, csv_file: Path | None,
-                     html_file: Path | None) -> None:
+                     html_file: Path | None, shifts: ShiftCalendar | None = None) -> None:
     """`station summary --store URL` or `--parquet DIR`: the summary (and report) computed by the database."""
     from station.review.console import print_summary
     from station.review.export import write_csv
@@ -115,7 +116,7 @@ def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path 
     selection = dataclasses.replace(window, station=station, product=product)
     console = Console(width=None if Console().is_terminal else 160)
     with _database(url, parquet) as (engine, where):
-        summary = summarise_sql(engine, selection, by=by)
+        summary = summarise_sql(engine, selection, by=by, shifts=shifts)
         print_summary(summary, console)
         if html_file is not None:
             from station.review.report import render_report

@@ -21,6 +21,7 @@ from pathlib import Path
 from typing import Annotated
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+import numpy as np
 from pydantic import BeforeValidator
 
 from station.config.fields import Strict, refuse
@@ -33,6 +34,8 @@ from station.config.files import (
 )
 
 SHIFTS_ENV = "STATION_SHIFTS"      # the calendar file when --shifts is not given
+NO_SHIFT = "(no shift)"            # the --by shift group of parts that ended outside every shift
+DAY_MINUTES = 24 * 60
 _CLOCK = re.compile(r"^([01]?\d|2[0-3]):([0-5]\d)$")
 
 
@@ -76,6 +79,7 @@ class ShiftWindow:
     start_t: float
     end_t: float
     describe: str
+    label: str              # "2026-12-01 22:00 night": sorts in time order, for --by shift
 
 
 @dataclass(frozen=True)
@@ -107,7 +111,36 @@ class ShiftCalendar:
         end = datetime.combine(end_day, entry.end, tzinfo=self.zone)
         text = (f"shift {name} of {day.isoformat()} ({entry.start:%H:%M}-{entry.end:%H:%M} {self.zone.key}: "
                 f"{_utc(start)} to {_utc(end)} UTC)")
-        return ShiftWindow(name, day, start.timestamp(), end.timestamp(), text)
+        return ShiftWindow(name, day, start.timestamp(), end.timestamp(), text,
+                           f"{day.isoformat()} {entry.start:%H:%M} {name}")
+
+    def windows_between(self, first_t: float, last_t: float) -> list[ShiftWindow]:
+        """Every occurrence of every shift that overlaps [first_t, last_t], in time order."""
+        day = datetime.fromtimestamp(first_t, self.zone).date() - timedelta(days=1)
+        last_day = datetime.fromtimestamp(last_t, self.zone).date()
+        found = []
+        while day <= last_day:
+            for name in self.shifts:
+                window = self.window(f"{name}@{day.isoformat()}", now=last_t)
+                if window.end_t > first_t and window.start_t <= last_t:
+                    found.append(window)
+            day += timedelta(days=1)
+        return sorted(found, key=lambda w: w.start_t)
+
+    def labels(self, end_t: np.ndarray) -> np.ndarray:
+        """The shift label of each end time (NO_SHIFT outside every shift or without a time)."""
+        out = np.full(len(end_t), NO_SHIFT, dtype=object)
+        finite = np.isfinite(end_t)
+        if not finite.any():
+            return out
+        windows = self.windows_between(float(end_t[finite].min()), float(end_t[finite].max()))
+        starts = np.array([w.start_t for w in windows])
+        ends = np.array([w.end_t for w in windows])
+        names = np.array([w.label for w in windows], dtype=object)
+        index = np.searchsorted(starts, np.where(finite, end_t, -np.inf), side="right") - 1
+        inside = finite & (index >= 0) & (end_t < ends[np.clip(index, 0, None)])
+        out[inside] = names[index[inside]]
+        return out
 
     def _start(self, entry: ShiftEntry, day: date) -> datetime:
         return datetime.combine(day, entry.start, tzinfo=self.zone)
@@ -135,7 +168,26 @@ def _build(doc: YamlDocument) -> ShiftCalendar:
                             "give a shift its hours (an end before the start runs past midnight)")
         if "@" in name or not name.strip():
             raise doc.error(["shifts", name], "a shift name may not be empty or hold '@'", "rename it")
+    _refuse_overlaps(doc, model.shifts)
     return ShiftCalendar(doc.file, ZoneInfo(model.time_zone), dict(model.shifts))
+
+
+def _minutes(entry: ShiftEntry) -> tuple[int, int]:
+    start = entry.start.hour * 60 + entry.start.minute
+    end = entry.end.hour * 60 + entry.end.minute
+    return start, end + DAY_MINUTES if end <= start else end
+
+
+def _refuse_overlaps(doc: YamlDocument, shifts: dict[str, ShiftEntry]) -> None:
+    """Shifts may not overlap: a part belongs to one shift (a handover is one shift's end)."""
+    names = list(shifts)
+    for i, first in enumerate(names):
+        a0, a1 = _minutes(shifts[first])
+        for second in names[i + 1:]:
+            b0, b1 = _minutes(shifts[second])
+            if any(a0 < b1 + k and b0 + k < a1 for k in (-DAY_MINUTES, 0, DAY_MINUTES)):
+                raise doc.error(["shifts", second], f"overlaps shift {first!r}",
+                                "let one shift end where the next begins")
 
 
 def calendar_path(option: Path | None, environ: dict[str, str]) -> Path:

@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from station.config.limit_tables import LimitTable, parse_limit_table
+from station.config.shifts import NO_SHIFT, ShiftCalendar
 from station.review.capability import STAT_COLUMNS, capability
 from station.review.load import RAW_PARAMS
 from station.review.sites import site_table_from_counts
@@ -139,7 +140,7 @@ def query_selected(engine: Engine, sel: Selection, body: str, results: bool = Fa
 
 
 def summarise_sql(engine: Engine, sel: Selection, by: str | None = None,
-                  limits_table: Callable[[str], object] | None = None) -> Summary:
+                  shifts: ShiftCalendar | None = None) -> Summary:
     """The Summary of the selected lots, as station/review/summary.py would give for their folders."""
     from station.review.limits import table_limits
 
@@ -224,7 +225,7 @@ def summarise_sql(engine: Engine, sel: Selection, by: str | None = None,
         notes=[f"from the {engine.name}: {sel.describe()}", *figure_notes(stat_frame, cpk)])
     if by is not None:
         summary.by = by
-        summary.by_table = yield_by_sql(engine, sel, by, grade_order)
+        summary.by_table = yield_by_sql(engine, sel, by, grade_order, shifts)
     return summary
 
 
@@ -299,14 +300,32 @@ _BY_KEY = {"station": "station", "lot": "lot_id", "site": "site_num",
            "hour": "floor(coalesce(end_t, 0) / 3600.0)"}
 
 
-def yield_by_sql(engine: Engine, sel: Selection, by: str, grade_order: list[str]) -> pd.DataFrame:
-    key = _BY_KEY[by]                  # one of the constants above, never input
-    counts = query_selected(engine, sel, f"""SELECT {key} AS key, count(*) AS tested,
+def yield_by_sql(engine: Engine, sel: Selection, by: str, grade_order: list[str],
+                 shifts: ShiftCalendar | None = None) -> pd.DataFrame:
+    source, key, extra_ctes, extra = "sel_parts", "", "", []
+    if by == "shift":
+        # The shifts that overlap the selected parts, as a table of [t0, t1) windows.
+        if shifts is None:
+            raise ValueError("grouping by shift needs the floor's shift calendar")
+        span = query_selected(engine, sel, "SELECT min(end_t) AS t0, max(end_t) AS t1 FROM sel_parts")
+        t0, t1 = span["t0"].iloc[0], span["t1"].iloc[0]
+        windows = shifts.windows_between(float(t0), float(t1)) if pd.notna(t0) and pd.notna(t1) else []
+        rows = [(w.label, w.start_t, w.end_t) for w in windows] or [(NO_SHIFT, 0.0, 0.0)]
+        extra_ctes = f""",
+    windows AS (SELECT * FROM (VALUES {", ".join("(%s, %s, %s)" for _ in rows)}) AS w(label, t0, t1))"""
+        extra = [v for row in rows for v in row]
+        source = "sel_parts p LEFT JOIN windows w ON p.end_t >= w.t0 AND p.end_t < w.t1"
+        key = f"coalesce(w.label, '{NO_SHIFT}')"     # a constant of ours, never input
+    else:
+        key = _BY_KEY[by]                  # one of the constants above, never input
+    counts = query_selected(engine, sel, f"""{extra_ctes}
+                                     SELECT {key} AS key, count(*) AS tested,
                                             count(*) FILTER (WHERE pass = 1) AS good,
                                             count(*) FILTER (WHERE pass = 0) AS failed
-                                     FROM sel_parts GROUP BY {key}""")
-    per_grade = query_selected(engine, sel, f"""SELECT {key} AS key, grade, count(*) AS n FROM sel_parts
-                                        WHERE pass = 1 GROUP BY {key}, grade""")
+                                     FROM {source} GROUP BY {key}""", extra=extra)
+    per_grade = query_selected(engine, sel, f"""{extra_ctes}
+                                        SELECT {key} AS key, grade, count(*) AS n FROM {source}
+                                        WHERE pass = 1 GROUP BY {key}, grade""", extra=extra)
 
     def label(value: object) -> str:
         if by == "site":

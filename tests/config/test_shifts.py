@@ -86,3 +86,23 @@ def test_the_calendar_file_comes_from_the_option_or_the_environment(tmp_path: Pa
         {"early", "late", "night"}
     with pytest.raises(ConfigError, match="STATION_SHIFTS"):
         calendar_path(None, {})
+
+
+def test_overlapping_shifts_are_refused() -> None:
+    text = CALENDAR.replace('night: {start: "22:00"', 'night: {start: "21:00"')
+    with pytest.raises(ConfigError, match=r"shifts.yaml:5: shifts.night: overlaps shift 'late'"):
+        parse_shift_calendar(text, "shifts.yaml")
+    # Touching is not overlapping: late ends where night begins.
+    assert len(parse_shift_calendar(CALENDAR).shifts) == 3
+
+
+def test_each_end_time_gets_the_label_of_its_shift() -> None:
+    import numpy as np
+
+    calendar = parse_shift_calendar('time_zone: UTC\nshifts:\n  day: {start: "08:00", end: "16:00"}\n'
+                                    '  night: {start: "22:00", end: "06:00"}\n')
+    times = np.array([utc("2026-12-01 07:59"), utc("2026-12-01 08:00"), utc("2026-12-01 15:59"),
+                      utc("2026-12-01 16:00"), utc("2026-12-01 23:00"), utc("2026-12-02 05:59"), np.nan])
+    assert calendar.labels(times).tolist() == [
+        "(no shift)", "2026-12-01 08:00 day", "2026-12-01 08:00 day", "(no shift)",
+        "2026-12-01 22:00 night", "2026-12-01 22:00 night", "(no shift)"]

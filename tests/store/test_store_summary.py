@@ -127,3 +127,31 @@ def test_a_shift_needs_its_calendar_and_a_known_name(store: str, tmp_path: Path)
     both = runner.invoke(main, ["summary", "--store", store, "--shift", "night", "--since", "8h",
                                 "--shifts", str(calendar)])
     assert both.exit_code == 2 and "not both" in both.output
+
+
+def test_yield_by_shift_from_the_store_equals_the_folders(store: str, floor: list[Path], tmp_path: Path) -> None:
+    from station.config.shifts import parse_shift_calendar
+
+    # Lot LOT-1 from 18:00 UTC, LOT-2 from 19:00, LOT-3 from 20:20: the shift change at 19:30
+    # falls inside LOT-2, and 06:00-14:00 has no part.
+    calendar = parse_shift_calendar('time_zone: UTC\nshifts:\n  late: {start: "14:00", end: "19:30"}\n'
+                                    '  night: {start: "19:30", end: "06:00"}\n')
+    assert CliRunner().invoke(main, ["publish", *map(str, floor), "--store", store]).exit_code == 0
+    want = summarise(load_datalogs(floor), by="shift", shifts=calendar)
+    assert want.by_table is not None
+    assert want.by_table["shift"].tolist() == ["2026-11-30 14:00 late", "2026-11-30 19:30 night"]
+    with connect(store, autocommit=True) as conn:
+        got = summarise_sql(postgres_engine(conn), Selection(), by="shift", shifts=calendar)
+    assert_same_summary(got, want)
+
+
+def test_by_shift_on_folders_names_each_shift(floor: list[Path], tmp_path: Path) -> None:
+    calendar = tmp_path / "shifts.yaml"
+    calendar.write_text('time_zone: UTC\nshifts:\n  late: {start: "14:00", end: "19:30"}\n'
+                        '  night: {start: "19:30", end: "06:00"}\n', encoding="utf-8")
+    runner = CliRunner()
+    result = runner.invoke(main, ["summary", *map(str, floor), "--by", "shift", "--shifts", str(calendar)])
+    assert result.exit_code == 0, result.output
+    assert "Yield by shift" in result.output and "2026-11-30 19:30 night" in result.output
+    stray = runner.invoke(main, ["summary", *map(str, floor), "--shifts", str(calendar)])
+    assert stray.exit_code == 2 and "--by shift" in stray.output

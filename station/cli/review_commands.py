@@ -68,8 +68,8 @@ def _refuse_unwritable(option: str, target: Path | None) -> None:
 
 @click.command("summary")
 @click.argument("datalogs", nargs=-1, required=False, type=click.Path(path_type=Path))
-@click.option("--by", type=click.Choice(["site", "lot", "station", "hour"]), default=None,
-              help="Add a yield table grouped this way.")
+@click.option("--by", type=click.Choice(["site", "lot", "station", "hour", "shift"]), default=None,
+              help="Add a yield table grouped this way (shift: by the floor's shift calendar).")
 @click.option("--csv", "csv_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write every figure to one tidy CSV (a 'section' column says which table).")
 @click.option("--html", "html_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
@@ -79,11 +79,16 @@ def _refuse_unwritable(option: str, target: Path | None) -> None:
 @click.option("--parquet", "parquet_dir", type=click.Path(file_okay=False, path_type=Path), default=None,
               help="Summarise Parquet history (station export) in place with DuckDB.")
 @click.option("--since", default=None, help="With --store/--parquet: parts ended in the last 8h, 30m, 2d...")
+@click.option("--shift", "shift", default=None, metavar="NAME[@YYYY-MM-DD]",
+              help="With --store/--parquet: parts ended in this shift (its latest start, or the one of that date).")
+@click.option("--shifts", "shifts_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="The floor's shift calendar (YAML); default: the file $STATION_SHIFTS names.")
 @click.option("--station", "station_name", default=None, help="With --store/--parquet: this station only.")
 @click.option("--product", default=None, help="With --store/--parquet: this product only.")
 def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path | None,
                     html_file: Path | None, store_url: str | None, parquet_dir: Path | None,
-                    since: str | None, station_name: str | None, product: str | None) -> None:
+                    since: str | None, shift: str | None, shifts_file: Path | None,
+                    station_name: str | None, product: str | None) -> None:
     """End-of-shift summary of datalog folders, the fleet store or Parquet history: yield, bins, sites, Cpk."""
     from station.review.console import print_summary
     from station.review.export import write_csv
@@ -91,18 +96,24 @@ def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path |
 
     for option, target in (("--csv", csv_file), ("--html", html_file)):
         _refuse_unwritable(option, target)   # before the work, not after printing it all
+    if shifts_file is not None and not shift and by != "shift":
+        raise BadInput("--shifts names the calendar for --shift or --by shift: give one of them too")
     if store_url is not None or parquet_dir is not None:
         from station.cli.store_commands import database_summary
 
-        database_summary(datalogs, store_url, parquet_dir, since, station_name, product, by, csv_file, html_file)
+        calendar = _calendar(shifts_file) if shift or by == "shift" else None
+        window = _window(since, shift, calendar)
+        database_summary(datalogs, store_url, parquet_dir, window, station_name, product, by, csv_file, html_file,
+                         calendar)
         return
     if not datalogs:
         raise BadInput("give one or more datalog folders, or --store URL, or --parquet DIR")
-    if since or station_name or product:
-        raise BadInput("--since, --station and --product select from --store or --parquet (give one)")
+    if since or shift or station_name or product:
+        raise BadInput("--since, --shift, --station and --product select from --store or --parquet (give one)")
     console = _console()
+    calendar = _calendar(shifts_file) if by == "shift" else None
     logs = _read(datalogs, console)
-    summary = summarise(logs, by=by)
+    summary = summarise(logs, by=by, shifts=calendar)
     print_summary(summary, console)
     try:
         if csv_file is not None:
@@ -115,6 +126,37 @@ def summary_command(datalogs: tuple[Path, ...], by: str | None, csv_file: Path |
             console.print(f"report written to {html_file}")
     except OSError as exc:
         raise BadInput(f"cannot write: {exc}") from None
+
+
+def _calendar(shifts_file: Path | None):
+    """The floor's shift calendar (--shifts FILE or $STATION_SHIFTS); a bad one is refused at its line."""
+    import os
+
+    from station.config.shifts import calendar_path, load_shift_calendar
+
+    return load_shift_calendar(calendar_path(shifts_file, dict(os.environ)))
+
+
+def _window(since: str | None, shift: str | None, calendar):
+    """The --since or --shift window as a Selection without station and product."""
+    import time
+
+    from station.store.summary_sql import Selection, parse_since
+
+    if since and shift:
+        raise BadInput("give --since or --shift, not both")
+    if since:
+        try:
+            return Selection(since_t=parse_since(since))
+        except ValueError as exc:
+            raise BadInput(f"--since {exc}") from None
+    if not shift:
+        return Selection()
+    try:
+        found = calendar.window(shift, now=time.time())
+    except ValueError as exc:
+        raise BadInput(f"--shift {exc}") from None
+    return Selection(since_t=found.start_t, until_t=found.end_t, window=found.describe)
 
 
 # ---- rebin ------------------------------------------------------------------------------------

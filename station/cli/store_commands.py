@@ -7,7 +7,11 @@ the store by host, port, database and user only.
 
 from __future__ import annotations
 
+import contextlib
+import dataclasses
+from collections.abc import Iterator
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
 from rich.console import Console
@@ -15,6 +19,10 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
 from station.datalog.folder import DatalogError
 from station.store.connect import StoreError, connect, shown
+
+if TYPE_CHECKING:
+    from station.config.shifts import ShiftCalendar
+    from station.store.summary_sql import Engine, Selection
 
 STORE_HELP = ("PostgreSQL store: a URL (postgresql://user@host:5432/db) or conninfo (service=NAME); "
               "the password may come from PGPASSWORD, ~/.pgpass or a service file.")
@@ -93,52 +101,67 @@ def _publish(conn, url: str, data, batch_parts: int, after_batch):
                          "publish again to resume)") from None
 
 
-def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path | None, since: str | None,
+def database_summary(datalogs: tuple[Path, ...], url: str | None, parquet: Path | None, window: Selection,
                      station: str | None, product: str | None, by: str | None, csv_file: Path | None,
-                     html_file: Path | None) -> None:
-    """`station summary --store URL` or `--parquet DIR`: the summary computed by the database."""
+                     html_file: Path | None, shifts: ShiftCalendar | None = None) -> None:
+    """`station summary --store URL` or `--parquet DIR`: the summary (and report) computed by the database."""
     from station.review.console import print_summary
     from station.review.export import write_csv
-    from station.store.summary_sql import Selection, parse_since, summarise_sql
+    from station.store.summary_sql import summarise_sql
 
     if datalogs:
         raise BadInput("give either datalog folders or --store/--parquet, not both")
     if url is not None and parquet is not None:
         raise BadInput("give either --store or --parquet, not both")
-    if html_file is not None:
-        raise BadInput("--html is made from folders only for now (its plots need every row): "
-                       "give the folders, or use --csv")
-    try:
-        since_t = parse_since(since) if since else None
-    except ValueError as exc:
-        raise BadInput(f"--since {exc}") from None
-    selection = Selection(since_t=since_t, station=station, product=product)
+    selection = dataclasses.replace(window, station=station, product=product)
     console = Console(width=None if Console().is_terminal else 160)
-    if url is not None:
-        import psycopg
+    with _database(url, parquet) as (engine, where):
+        summary = summarise_sql(engine, selection, by=by, shifts=shifts)
+        print_summary(summary, console)
+        if html_file is not None:
+            from station.review.report import render_report
+            from station.store.report_sql import report_data_sql
 
-        from station.store.connect import scrub
-        from station.store.engines import postgres_engine
-        from station.store.schema import require_current
-
-        with connect(url, autocommit=True) as conn:
-            require_current(conn, shown(url))
+            data = report_data_sql(engine, selection, summary, f"{where}: {selection.describe()}")
             try:
-                summary = summarise_sql(postgres_engine(conn), selection, by=by)
-            except psycopg.Error as exc:
-                raise StoreError(f"store {shown(url)}: {scrub(str(exc).strip().splitlines()[0], url)}") from None
-    else:
-        assert parquet is not None
-        from station.store.parquet import parquet_summary
-
-        summary = parquet_summary(parquet, selection, by=by)
-    print_summary(summary, console)
+                render_report(data, summary, html_file)
+            except OSError as exc:
+                raise BadInput(f"cannot write: {exc}") from None
+            console.print(f"report written to {html_file}")
     if csv_file is not None:
         try:
             write_csv(summary, csv_file)
         except OSError as exc:
             raise BadInput(f"cannot write: {exc}") from None
         console.print(f"figures written to {csv_file}")
+
+
+@contextlib.contextmanager
+def _database(url: str | None, parquet: Path | None) -> Iterator[tuple[Engine, str]]:
+    """The engine over the store or the Parquet history, and its name for the report."""
+    if url is None:
+        assert parquet is not None
+        from station.store.engines import duckdb_engine
+        from station.store.parquet import open_history
+
+        history = open_history(parquet)
+        try:
+            yield duckdb_engine(history), f"Parquet history {parquet}"
+        finally:
+            history.close()
+        return
+    import psycopg
+
+    from station.store.connect import scrub
+    from station.store.engines import postgres_engine
+    from station.store.schema import require_current
+
+    with connect(url, autocommit=True) as conn:
+        require_current(conn, shown(url))
+        try:
+            yield postgres_engine(conn), f"store {shown(url)}"
+        except psycopg.Error as exc:
+            raise StoreError(f"store {shown(url)}: {scrub(str(exc).strip().splitlines()[0], url)}") from None
 
 
 @click.command("export")
@@ -158,11 +181,12 @@ def export_command(datalogs: tuple[Path, ...], url: str | None, target: tuple[st
     console = Console(stderr=True)
     lots = 0
 
-    def told(lot, rows: int) -> None:
+    def told(lot, written) -> None:
         nonlocal lots
         lots += 1
-        console.print(f"lot {lot.lot['lot_id']} of {lot.lot['station']}: {len(lot.parts)} parts, {rows} results",
-                      markup=False, highlight=False)
+        how = "written" if written.rewritten else f"{written.new_parts} new"
+        console.print(f"lot {lot.lot['lot_id']} of {lot.lot['station']}: {written.parts} parts ({how}), "
+                      f"{written.new_results} results written", markup=False, highlight=False)
 
     if url is None:
         for folder in datalogs:

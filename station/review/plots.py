@@ -71,13 +71,19 @@ def yield_bars(frame: pd.DataFrame, key: str, title: str) -> str:
     return to_base64(fig)
 
 
-def histogram(values: np.ndarray, units: str, title: str, limits: pd.DataFrame, over_range: int) -> str:
-    """Histogram of finite values with each grade's LSL/USL as vertical lines."""
+def histogram_bin_count(finite: int) -> int:
+    """Bars of a histogram of `finite` values: the square-root rule, kept between 10 and 60."""
+    return min(60, max(10, int(np.sqrt(finite))))
+
+
+def histogram(counts: np.ndarray, edges: np.ndarray, units: str, title: str, limits: pd.DataFrame,
+              over_range: int) -> str:
+    """Histogram (counts per bar between `edges`, as numpy.histogram gives them) with each
+    grade's LSL/USL as vertical lines. Counts rather than values, so that a database can count."""
     factor, label = display_unit(units)
     fig, ax = _axes(6.0, 2.8)
-    shown = values * factor
-    if len(shown):
-        ax.hist(shown, bins=min(60, max(10, int(np.sqrt(len(shown))))), color=BAR, alpha=0.85)
+    if len(counts) and counts.sum():
+        ax.stairs(counts, edges * factor, fill=True, color=BAR, alpha=0.85)
     for i, row in enumerate(limits.itertuples()):
         colour = GRADE_COLOURS[i % len(GRADE_COLOURS)]
         for side, value in (("LSL", row.LSL), ("USL", row.USL)):

@@ -8,6 +8,7 @@ and Vos-versus-common-mode curves of a sample of parts with the regions shaded.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -16,10 +17,11 @@ import numpy as np
 import pandas as pd
 
 from station import __version__
+from station.config.limit_tables import LimitTable
 from station.config.parameters import LIMITABLE
-from station.review.limits import datalog_table, limits_in_force
+from station.review.limits import limits_in_force
 from station.review.load import Datalogs
-from station.review.plots import histogram, pareto_plot, vos_curves, yield_bars
+from station.review.plots import histogram, histogram_bin_count, pareto_plot, vos_curves, yield_bars
 from station.review.summary import Summary, group_key, yield_by
 from station.review.units import display_unit, fmt, fmt_share
 
@@ -122,14 +124,33 @@ def _plain(value: object) -> str:
     return str(value)
 
 
+@dataclass
+class ReportData:
+    """What the report draws besides the Summary: from datalog folders (`folder_report_data`)
+    or counted by a database (station/store/report_sql.py)."""
+
+    lots: list[dict]                     # lot.json headers; the first is described
+    source: str                          # where the data came from, for the footer
+    hour_table: pd.DataFrame             # yield by hour (summary.yield_by's columns)
+    limits: pd.DataFrame                 # GRADE, PARAM, REGION, LSL, USL: lines on the histograms
+    histograms: dict[tuple[str, str], tuple[np.ndarray, np.ndarray]]   # (param, region) -> counts, edges
+    curves: dict[int, tuple[np.ndarray, np.ndarray]]                   # a sample of parts: VCM, Vos
+    curve_parts: int                     # parts with a curve, of which `curves` is the sample
+    regions: dict[str, tuple[float, float]]                            # name -> VCM range, shaded
+
+
 def write_report(logs: Datalogs, summary: Summary, path: str | Path) -> Path:
-    lot = logs.lots[0]
-    title = ", ".join(sorted({str(x.get("lot_id", "?")) for x in logs.lots}))
-    subtitle = f"{lot.get('product', '?')} on {lot.get('station', '?')}, {len(logs.folders)} datalog(s), " \
+    """The report of datalog folders."""
+    return render_report(folder_report_data(logs, summary), summary, path)
+
+
+def render_report(data: ReportData, summary: Summary, path: str | Path) -> Path:
+    lot = data.lots[0] if data.lots else {}
+    title = ", ".join(sorted({str(x.get("lot_id", "?")) for x in data.lots})) or "no lot"
+    subtitle = f"{lot.get('product', '?')} on {lot.get('station', '?')}, {len(data.lots)} datalog(s), " \
                f"{summary.overview['parts tested']} parts tested"
-    hour_table = yield_by(logs.parts, group_key(logs, "hour"), "hour", summary.grade_order)
     html = _TEMPLATE.render(
-        title=title, subtitle=subtitle, header=_header(logs), instruments=list((lot.get("instruments") or {}).items()),
+        title=title, subtitle=subtitle, header=_header(data.lots), instruments=list((lot.get("instruments") or {}).items()),
         cards=_cards(summary), grades=_html_table(summary.grades, {"share": fmt_share}),
         hard_bins=_html_table(summary.hard_bins, {"share": fmt_share}),
         soft_bins=_html_table(summary.soft_bins, {"share": fmt_share}),
@@ -137,18 +158,50 @@ def write_report(logs: Datalogs, summary: Summary, path: str | Path) -> Path:
         sites=_html_table(summary.sites, {"yield": fmt_share, "p_vs_rest": lambda v: _plain(v)}),
         site_test=f"Site difference: {summary.site_test.describe()}", site_flag=summary.site_test.flagged,
         site_plot=("Yield by site", yield_bars(summary.sites, "site", "Yield by site")),
-        hour_plot=("Yield by hour (UTC)", yield_bars(hour_table, "hour", "Yield by hour (UTC)")),
-        stats=_stats_table(summary), cpk=_cpk_table(summary), histograms=_histograms(logs, summary),
-        curves=_curves(logs), notes=summary.notes + [f"limits for Cpk and plots: {summary.limits_source}"],
+        hour_plot=("Yield by hour (UTC)", yield_bars(data.hour_table, "hour", "Yield by hour (UTC)")),
+        stats=_stats_table(summary), cpk=_cpk_table(summary), histograms=_histograms(data, summary),
+        curves=_curves(data), notes=summary.notes + [f"limits for Cpk and plots: {summary.limits_source}"],
         generated=datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC"), version=__version__,
-        folders=", ".join(str(f) for f in logs.folders), figure=_figure)
+        folders=data.source, figure=_figure)
     target = Path(path)
     target.write_text(html, encoding="utf-8")
     return target
 
 
-def _header(logs: Datalogs) -> list[tuple[str, str]]:
-    lot = logs.lots[0]
+def folder_report_data(logs: Datalogs, summary: Summary) -> ReportData:
+    limits, _, table = limits_in_force(logs)
+    results = logs.results
+    rows = results[results["PARAM"].isin(list(LIMITABLE))]
+    histograms = {}
+    for key, frame in rows.groupby([rows["PARAM"].astype(str), rows["REGION"].astype(str)]):
+        values = frame["RESULT"].to_numpy()
+        finite = values[np.isfinite(values)]
+        counts, edges = np.histogram(finite, bins=histogram_bin_count(len(finite)))
+        histograms[(str(key[0]), str(key[1]))] = (counts, edges)
+    raw = results[results["PARAM"] == "vos_cm"]
+    curves: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    parts = raw["PART_SEQ"].unique()
+    if len(parts):
+        rng = np.random.default_rng(CURVE_SEED)
+        chosen = set(rng.choice(parts, size=min(CURVE_SAMPLE, len(parts)), replace=False).tolist())
+        sample = raw[raw["PART_SEQ"].isin(chosen)]
+        curves = {int(seq): (g["VCM"].to_numpy(), g["RESULT"].to_numpy()) for seq, g in sample.groupby("PART_SEQ")}
+    return ReportData(
+        lots=logs.lots, source=", ".join(str(f) for f in logs.folders),
+        hour_table=yield_by(logs.parts, group_key(logs, "hour"), "hour", summary.grade_order),
+        limits=limits, histograms=histograms, curves=curves, curve_parts=len(parts),
+        regions=region_ranges(table, logs.lots[0].get("span_v")))
+
+
+def region_ranges(table: LimitTable | None, span: object) -> dict[str, tuple[float, float]]:
+    """The common-mode regions of a limit table over the lot's span (none without either)."""
+    if table is None or not isinstance(span, int | float):
+        return {}
+    return {r.name: r.vcm_range(float(span)) for r in table.regions}
+
+
+def _header(lots: list[dict]) -> list[tuple[str, str]]:
+    lot = lots[0] if lots else {}
     rows = [(k, str(lot.get(k, ""))) for k in ("lot_id", "product", "station", "operator", "mode",
                                                "start_time", "end_time", "sites", "span_v")]
     for key, label in (("sequence", "program (sequence)"), ("limits", "limit table"), ("bench", "bench")):
@@ -156,8 +209,8 @@ def _header(logs: Datalogs) -> list[tuple[str, str]]:
         rows.append((label, f"{info.get('source', '')}  sha256 {info.get('sha256', '')}"))
     software = lot.get("software") or {}
     rows.append(("software", f"{software.get('name', '')} {software.get('version', '')}"))
-    if len(logs.lots) > 1:
-        rows.append(("other lots", ", ".join(str(x.get("lot_id")) for x in logs.lots[1:])))
+    if len(lots) > 1:
+        rows.append(("other lots", ", ".join(str(x.get("lot_id")) for x in lots[1:])))
     return rows
 
 
@@ -188,35 +241,21 @@ def _cpk_table(summary: Summary) -> str:
     return _html_table(frame, {"cpk": lambda v: _plain(v)})
 
 
-def _histograms(logs: Datalogs, summary: Summary) -> list[tuple[str, str]]:
-    limits, _, _ = limits_in_force(logs)
-    results = logs.results
+def _histograms(data: ReportData, summary: Summary) -> list[tuple[str, str]]:
+    limits = data.limits
     plots = []
-    rows = results[results["PARAM"].isin(list(LIMITABLE))]
-    groups = {key: frame for key, frame in rows.groupby([rows["PARAM"].astype(str), rows["REGION"].astype(str)])}
     for stat in summary.stats.itertuples():
-        if stat.param not in LIMITABLE or (stat.param, stat.region) not in groups:
+        if stat.param not in LIMITABLE or (stat.param, stat.region) not in data.histograms:
             continue
-        values = groups[(stat.param, stat.region)]["RESULT"].to_numpy()
-        finite = values[np.isfinite(values)]
+        counts, edges = data.histograms[(stat.param, stat.region)]
         own = limits[(limits["PARAM"] == stat.param) & (limits["REGION"] == stat.region)]
         title = f"{stat.param} {stat.region}".strip()
-        plots.append((f"Histogram: {title}", histogram(finite, stat.units, title, own, int(stat.over_range))))
+        plots.append((f"Histogram: {title}", histogram(counts, edges, stat.units, title, own, int(stat.over_range))))
     return plots
 
 
-def _curves(logs: Datalogs) -> tuple[str, str] | None:
-    raw = logs.results[logs.results["PARAM"] == "vos_cm"]
-    if raw.empty:
+def _curves(data: ReportData) -> tuple[str, str] | None:
+    if not data.curves:
         return None
-    parts = raw["PART_SEQ"].unique()
-    rng = np.random.default_rng(CURVE_SEED)
-    chosen = set(rng.choice(parts, size=min(CURVE_SAMPLE, len(parts)), replace=False).tolist())
-    sample = raw[raw["PART_SEQ"].isin(chosen)]
-    curves = {int(seq): (g["VCM"].to_numpy(), g["RESULT"].to_numpy()) for seq, g in sample.groupby("PART_SEQ")}
-    table = datalog_table(logs, 0)
-    span = logs.lots[0].get("span_v")
-    regions = ({r.name: r.vcm_range(float(span)) for r in table.regions}
-               if table is not None and isinstance(span, int | float) else {})
-    title = f"Vos versus common mode, {len(curves)} of {len(parts)} parts"
-    return title, vos_curves(curves, regions, title)
+    title = f"Vos versus common mode, {len(data.curves)} of {data.curve_parts} parts"
+    return title, vos_curves(data.curves, data.regions, title)

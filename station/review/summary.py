@@ -16,6 +16,7 @@ from datetime import UTC, datetime
 import numpy as np
 import pandas as pd
 
+from station.config.shifts import ShiftCalendar
 from station.review.budget import budget_distribution, logged_budgets
 from station.review.capability import capability, parameter_stats
 from station.review.limits import limits_in_force
@@ -23,7 +24,7 @@ from station.review.load import Datalogs
 from station.review.sites import SiteTest, site_table
 from station.screen.review import ScreenReview, screen_review
 
-GROUPINGS = ("site", "lot", "station", "hour")
+GROUPINGS = ("site", "lot", "station", "hour", "shift")
 
 
 @dataclass
@@ -46,7 +47,8 @@ class Summary:
     budgets: pd.DataFrame | None = None   # per application, when the lot logged budget rows
 
 
-def summarise(logs: Datalogs, by: str | None = None) -> Summary:
+def summarise(logs: Datalogs, by: str | None = None, shifts: ShiftCalendar | None = None) -> Summary:
+    """The summary of datalog folders; `by` adds a yield table (by "shift" needs the calendar)."""
     parts = logs.parts
     limits, limits_source, table = limits_in_force(logs)
     grade_order = [g.name for g in table.grades] if table is not None else \
@@ -67,7 +69,7 @@ def summarise(logs: Datalogs, by: str | None = None) -> Summary:
         summary.budgets = budget_distribution(logged)
     if by is not None:
         summary.by = by
-        summary.by_table = yield_by(parts, group_key(logs, by), by, grade_order)
+        summary.by_table = yield_by(parts, group_key(logs, by, shifts), by, grade_order)
     summary.notes += figure_notes(stats, summary.cpk)
     return summary
 
@@ -174,8 +176,12 @@ def failure_pareto(parts: pd.DataFrame, names: dict[int, str]) -> pd.DataFrame:
     return frame[["bin", "name", "count", "share", "cumulative"]]
 
 
-def group_key(logs: Datalogs, by: str) -> pd.Series:
+def group_key(logs: Datalogs, by: str, shifts: ShiftCalendar | None = None) -> pd.Series:
     parts = logs.parts
+    if by == "shift":
+        if shifts is None:
+            raise ValueError("grouping by shift needs the floor's shift calendar")
+        return pd.Series(shifts.labels(parts["END_T"].to_numpy(dtype=float)), index=parts.index)
     if by == "site":
         return parts["SITE_NUM"].astype(int).astype(str)
     if by == "lot":

@@ -23,11 +23,11 @@ def postgres_engine(conn: psycopg.Connection) -> Engine:
             columns = [d.name for d in cur.description or []]
             return pd.DataFrame(cur.fetchall(), columns=columns)
 
-    return Engine(run, PG_FINITE, "store")
+    return Engine(run, PG_FINITE, "store", "SELECT lot_key, header::text AS header FROM lots")
 
 
 def duckdb_engine(conn: duckdb.DuckDBPyConnection) -> Engine:
     def run(sql: str, params: list) -> pd.DataFrame:
         return conn.execute(sql.replace("%s", "?"), params).df()
 
-    return Engine(run, DUCKDB_FINITE, "Parquet history")
+    return Engine(run, DUCKDB_FINITE, "Parquet history", "SELECT lot_key, header FROM lot_list")

@@ -3,7 +3,7 @@
 Layout of an export folder (every file named by the lot's key, so exporting a lot again
 replaces its files, never adds a second copy):
 
-    lots/<key>.parquet                 one row: key, station, lot id, product, times, limits SHA-256
+    lots/<key>.parquet                 one row: key, station, lot id, product, times, limits SHA-256, lot.json
     bins/<key>.parquet                 bin names and pass flags of the lot
     applied_files/<sha256>.parquet     the limit table (and sequence, bench) the lot applied
     parts/product=<P>/month=<YYYY-MM>/<key>.parquet
@@ -18,6 +18,7 @@ store's table names at these files and runs the store's SQL summary on them.
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
@@ -40,7 +41,8 @@ TABLES = ("lots", "bins", "applied_files", "parts", "results")
 class LotExport:
     """One lot's rows, ready to write."""
 
-    lot: dict                  # lot_key, station, lot_id, product, start_t, end_t, start_time, limits_sha256, complete
+    lot: dict                  # lot_key, station, lot_id, product, start_t, end_t, start_time, limits_sha256,
+                               # complete, header (lot.json as text, for the report)
     bins: pd.DataFrame         # kind, bin, name, passing
     files: list[tuple[str, str, str]]   # (sha256, kind, content)
     parts: pd.DataFrame        # the store's part columns
@@ -71,7 +73,7 @@ def from_folder(folder: Path) -> LotExport:
     return LotExport(
         {"lot_key": lot_uid(lot), "station": station, "lot_id": lot_id, "product": str(lot.get("product") or ""),
          "start_t": start_t, "end_t": end_t, "start_time": start_time, "limits_sha256": limits_sha,
-         "complete": bool(lot.get("complete", False))},
+         "complete": bool(lot.get("complete", False)), "header": json.dumps(lot)},
         bins, [(sha, kind, text) for kind, (sha, text) in data.files.items()],
         part_frame(data.parts), result_frame(data.results))
 
@@ -97,7 +99,7 @@ def from_store(conn) -> Iterator[LotExport]:
         yield LotExport(
             {"lot_key": lot_uid(header), "station": station, "lot_id": lot_id, "product": row.product,
              "start_t": _float(row.start_t), "end_t": _float(row.end_t), "start_time": start_time,
-             "limits_sha256": limits_sha, "complete": bool(row.complete)},
+             "limits_sha256": limits_sha, "complete": bool(row.complete), "header": json.dumps(header)},
             bins, [(str(r.sha256), str(r.kind), str(r.content)) for r in files.itertuples()],
             _typed_parts(parts), _typed_results(results))
 
@@ -136,7 +138,8 @@ RESULT_SCHEMA = pa.schema([("lot_key", pa.int64()), ("part_seq", pa.int32()), ("
                            ("pass", pa.int16()), ("grade", pa.string())])
 LOT_SCHEMA = pa.schema([("lot_key", pa.int64()), ("station", pa.string()), ("lot_id", pa.string()),
                         ("product", pa.string()), ("start_t", pa.float64()), ("end_t", pa.float64()),
-                        ("start_time", pa.string()), ("limits_sha256", pa.string()), ("complete", pa.bool_())])
+                        ("start_time", pa.string()), ("limits_sha256", pa.string()), ("complete", pa.bool_()),
+                        ("header", pa.string())])
 
 
 def _write(table: pa.Table, path: Path) -> None:
@@ -152,17 +155,78 @@ def partition(product: str, month: str) -> str:
     return f"product={quote(product or 'none', safe='')}/month={month}"
 
 
-def write_lot(out: Path, lot: LotExport) -> int:
-    """Write one lot's files; returns the result rows written."""
+MAX_CHUNKS = 16          # a lot exported in more pieces than this is rewritten as one file
+
+
+@dataclass
+class Written:
+    """What one export of a lot wrote."""
+
+    parts: int               # parts in the lot now
+    new_parts: int           # of them written by this export
+    new_results: int
+    rewritten: bool          # the lot's files were replaced (first export, a resumed lot, compaction)
+
+
+def _chunks(out: Path, table: str, key: int) -> list[Path]:
+    """The lot's files of a table: `<key>.parquet` holds its first parts, `<key>-<first seq>.parquet`
+    each later piece."""
+    return sorted([*(out / table).glob(f"*/*/{key}.parquet"), *(out / table).glob(f"*/*/{key}-*.parquet")])
+
+
+def _exported_parts(files: list[Path]) -> pd.DataFrame:
+    if not files:
+        return pd.DataFrame({"part_seq": [], "part_id": [], "end_t": []})
+    frames = [pq.read_table(f, columns=["part_seq", "part_id", "end_t"]).to_pandas() for f in files]
+    return pd.concat(frames, ignore_index=True).sort_values("part_seq", kind="stable").reset_index(drop=True)
+
+
+def _agrees(old: pd.DataFrame, new: pd.DataFrame) -> bool:
+    """The exported parts are the first rows of the lot as it is now (a resume drops and retests
+    an interrupted index, which changes ids or end times)."""
+    if len(old) > len(new):
+        return False
+    head = new.iloc[: len(old)]
+    return bool((old["part_seq"].to_numpy() == head["part_seq"].to_numpy()).all()
+                and (old["part_id"].astype(str).to_numpy() == head["part_id"].astype(str).to_numpy()).all()
+                and pd.Series(old["end_t"].to_numpy()).equals(pd.Series(head["end_t"].to_numpy(), dtype=float)))
+
+
+def write_lot(out: Path, lot: LotExport) -> Written:
+    """Write one lot's files. A lot exported before gets only its new parts, as a further piece,
+    when the parts exported then are still its first rows; otherwise its files are replaced."""
     key = int(lot.lot["lot_key"])
     where = partition(lot.lot["product"], month_of(lot.lot["start_t"], lot.parts))
-    parts = lot.parts.copy()
+    parts = lot.parts.sort_values("part_seq", kind="stable").reset_index(drop=True)
     parts.insert(0, "lot_key", key)
     results = lot.results.copy()
     results.insert(0, "lot_key", key)
-    _write(pa.Table.from_pandas(parts, schema=PART_SCHEMA, preserve_index=False), out / "parts" / where / f"{key}.parquet")
-    _write(pa.Table.from_pandas(results, schema=RESULT_SCHEMA, preserve_index=False),
-           out / "results" / where / f"{key}.parquet")
+    old_parts, old_results = _chunks(out, "parts", key), _chunks(out, "results", key)
+    in_place = all(f.parent.relative_to(out / "parts").as_posix() == where for f in old_parts)
+    exported = _exported_parts(old_parts) if in_place else pd.DataFrame()
+    grow = bool(old_parts) and in_place and len(old_parts) < MAX_CHUNKS and _agrees(exported, parts)
+    if grow:
+        new = parts.iloc[len(exported):]
+        piece = results.iloc[0:0]
+        if len(new):
+            first = int(new["part_seq"].iloc[0])
+            piece = results[results["part_seq"] >= first]
+            # Results before parts, the lot's row last: a reader sees a part only with its results.
+            _write(pa.Table.from_pandas(piece, schema=RESULT_SCHEMA, preserve_index=False),
+                   out / "results" / where / f"{key}-{first:09d}.parquet")
+            _write(pa.Table.from_pandas(new, schema=PART_SCHEMA, preserve_index=False),
+                   out / "parts" / where / f"{key}-{first:09d}.parquet")
+        written = Written(len(parts), len(new), len(piece), rewritten=False)
+    else:
+        _write(pa.Table.from_pandas(results, schema=RESULT_SCHEMA, preserve_index=False),
+               out / "results" / where / f"{key}.parquet")
+        _write(pa.Table.from_pandas(parts, schema=PART_SCHEMA, preserve_index=False),
+               out / "parts" / where / f"{key}.parquet")
+        keep = {out / "results" / where / f"{key}.parquet", out / "parts" / where / f"{key}.parquet"}
+        for stale in [*old_parts, *old_results]:
+            if stale not in keep:
+                stale.unlink(missing_ok=True)
+        written = Written(len(parts), len(parts), len(results), rewritten=True)
     bins = lot.bins.copy()
     bins.insert(0, "lot_key", key)
     _write(pa.Table.from_pandas(bins.astype({"bin": "int32", "passing": bool}), preserve_index=False),
@@ -172,16 +236,17 @@ def write_lot(out: Path, lot: LotExport) -> int:
         if not target.exists():
             _write(pa.table({"sha256": [sha], "kind": [kind], "content": [content]}), target)
     _write(pa.Table.from_pylist([lot.lot], schema=LOT_SCHEMA), out / "lots" / f"{key}.parquet")   # last: the lot is whole
-    return len(results)
+    return written
 
 
-def export(out: Path, lots: Iterable[LotExport], progress: Callable[[LotExport, int], None] | None = None) -> int:
+def export(out: Path, lots: Iterable[LotExport], progress: Callable[[LotExport, Written], None] | None = None) -> int:
+    """Write every lot; returns the result rows written."""
     total = 0
     for lot in lots:
-        rows = write_lot(out, lot)
-        total += rows
+        written = write_lot(out, lot)
+        total += written.new_results
         if progress is not None:
-            progress(lot, rows)
+            progress(lot, written)
     return total
 
 
@@ -194,7 +259,11 @@ def open_history(folder: Path):
                            "station export --to parquet)")
     conn = duckdb.connect()
     root = str(folder).replace("'", "''")     # a path in a string literal: quotes doubled
-    conn.execute(f"CREATE VIEW lot_list AS SELECT * FROM read_parquet('{root}/lots/*.parquet')")
+    # union_by_name: lot files written before the header column read it as NULL.
+    lots = f"read_parquet('{root}/lots/*.parquet', union_by_name = true)"
+    columns = {row[0] for row in conn.execute(f"DESCRIBE SELECT * FROM {lots}").fetchall()}
+    extra = "" if "header" in columns else ", NULL::VARCHAR AS header"
+    conn.execute(f"CREATE VIEW lot_list AS SELECT *{extra} FROM {lots}")
     for name in ("parts", "results"):
         files = list((folder / name).glob("*/*/*.parquet"))
         if files:

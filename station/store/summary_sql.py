@@ -21,12 +21,20 @@ from datetime import UTC, datetime
 import numpy as np
 import pandas as pd
 
+from station.config.limit_tables import LimitTable, parse_limit_table
+from station.config.shifts import NO_SHIFT, ShiftCalendar
 from station.review.capability import STAT_COLUMNS, capability
 from station.review.load import RAW_PARAMS
 from station.review.sites import site_table_from_counts
 from station.review.summary import Summary, figure_notes
 
 PERCENTILES = (1, 50, 99)       # as station/review/capability.py
+# "The first lot" (its grades, limits and bin names rule): the earliest start, as the folder
+# summary takes the first folder and folders are usually given in time order. Not the lot_key:
+# in the store that is publish order, in Parquet history a hash.
+def lot_order(alias: str) -> str:
+    """ORDER BY terms for the lots of table alias `alias`, earliest first."""
+    return f"{alias}.start_t NULLS LAST, {alias}.lot_key"
 
 
 @dataclass
@@ -36,6 +44,7 @@ class Engine:
     run: Callable[[str, list], pd.DataFrame]
     finite: str                 # SQL: true where `result` is a finite number
     name: str
+    headers: str                # SQL: a table (lot_key, header) of each lot's lot.json as text
 
 
 @dataclass(frozen=True)
@@ -43,10 +52,14 @@ class Selection:
     since_t: float | None = None     # parts that ended at or after this Unix time
     station: str | None = None
     product: str | None = None
+    until_t: float | None = None     # ... and before this one (a shift's end)
+    window: str | None = None        # the window in words (a shift), for the notes
 
     def describe(self) -> str:
         parts = []
-        if self.since_t is not None:
+        if self.window is not None:
+            parts.append(f"parts ended in the {self.window}")
+        elif self.since_t is not None:
             parts.append(f"parts ended since {datetime.fromtimestamp(self.since_t, UTC):%Y-%m-%d %H:%M} UTC")
         if self.station is not None:
             parts.append(f"station {self.station}")
@@ -81,19 +94,20 @@ def _ctes(sel: Selection) -> tuple[str, list]:
         where.append("product = %s")
         params.append(sel.product)
     part_where = ""
+    window: list[float] = []
     if sel.since_t is not None:
-        where.append("lot_key IN (SELECT lot_key FROM parts WHERE end_t >= %s)")
-        params.append(sel.since_t)
-        part_where = "WHERE p.end_t >= %s"
+        ends = "end_t >= %s" + (" AND end_t < %s" if sel.until_t is not None else "")
+        window = [sel.since_t] + ([sel.until_t] if sel.until_t is not None else [])
+        where.append(f"lot_key IN (SELECT lot_key FROM parts WHERE {ends})")
+        params.extend(window)
+        part_where = "WHERE p." + ends.replace(" AND end_t", " AND p.end_t")
     lots = "SELECT lot_key, station, lot_id, product, start_t, end_t, limits_sha256 FROM lot_list"
     if where:
         lots += " WHERE " + " AND ".join(where)
     sql = f"""WITH sel_lots AS ({lots}),
     sel_parts AS (SELECT p.*, l.station, l.lot_id FROM parts p JOIN sel_lots l ON p.lot_key = l.lot_key
                   {part_where})"""
-    if sel.since_t is not None:
-        params.append(sel.since_t)
-    return sql, params
+    return sql, params + window
 
 
 def _results_cte(engine: Engine, sel: Selection, lot_keys: list[int] | None) -> tuple[str, list]:
@@ -115,7 +129,7 @@ def _results_cte(engine: Engine, sel: Selection, lot_keys: list[int] | None) -> 
                     FROM results r WHERE {where} AND r.param NOT IN ({raw}))""", params + sorted(RAW_PARAMS)
 
 
-def _query(engine: Engine, sel: Selection, body: str, results: bool = False,
+def query_selected(engine: Engine, sel: Selection, body: str, results: bool = False,
            extra: list | None = None, lot_keys: list[int] | None = None) -> pd.DataFrame:
     ctes, params = _ctes(sel)
     if results:
@@ -126,13 +140,12 @@ def _query(engine: Engine, sel: Selection, body: str, results: bool = False,
 
 
 def summarise_sql(engine: Engine, sel: Selection, by: str | None = None,
-                  limits_table: Callable[[str], object] | None = None) -> Summary:
+                  shifts: ShiftCalendar | None = None) -> Summary:
     """The Summary of the selected lots, as station/review/summary.py would give for their folders."""
-    from station.config.limit_tables import parse_limit_table
     from station.review.limits import table_limits
 
-    q = lambda body, **kw: _query(engine, sel, body, **kw)  # noqa: E731
-    lots = q("SELECT lot_key, station, lot_id, start_t, end_t FROM sel_lots ORDER BY lot_key")
+    q = lambda body, **kw: query_selected(engine, sel, body, **kw)  # noqa: E731
+    lots = q(f"SELECT lot_key, station, lot_id, start_t, end_t FROM sel_lots s ORDER BY {lot_order('s')}")
     counts = q("""SELECT count(*) AS tested, count(*) FILTER (WHERE pass = 1) AS good,
                          count(*) FILTER (WHERE pass = 0) AS failed, coalesce(sum(retest), 0) AS retests
                   FROM sel_parts""").iloc[0]
@@ -157,8 +170,9 @@ def summarise_sql(engine: Engine, sel: Selection, by: str | None = None,
     soft = q("SELECT soft_bin AS bin, count(*) AS count FROM sel_parts GROUP BY soft_bin ORDER BY soft_bin")
     failing = q("SELECT soft_bin AS bin, count(*) AS count FROM sel_parts WHERE pass IS DISTINCT FROM 1 "
                 "GROUP BY soft_bin")
-    names = q("""SELECT DISTINCT ON (kind, bin) kind, bin, name, passing FROM bins
-                 WHERE lot_key IN (SELECT lot_key FROM sel_lots) ORDER BY kind, bin, lot_key""")
+    names = q(f"""SELECT DISTINCT ON (b.kind, b.bin) b.kind, b.bin, b.name, b.passing
+                  FROM bins b JOIN sel_lots s ON b.lot_key = s.lot_key
+                  ORDER BY b.kind, b.bin, {lot_order('s')}""")
     sites = q("""SELECT site_num AS site, count(*) AS tested, count(*) FILTER (WHERE pass = 1) AS good,
                         count(*) FILTER (WHERE pass IS NOT NULL) AS decided
                  FROM sel_parts GROUP BY site_num ORDER BY site_num""")
@@ -167,16 +181,11 @@ def summarise_sql(engine: Engine, sel: Selection, by: str | None = None,
                          avg(fin) AS mean, stddev_samp(fin) AS sigma, min(fin) AS min, max(fin) AS max, {pct}
                   FROM sel_results GROUP BY param, region""", results=True,
               lot_keys=None if sel == Selection() else [int(k) for k in lots["lot_key"]])
-    limit_hashes = q("""SELECT s.lot_key, s.limits_sha256 AS sha256, f.content FROM sel_lots s
-                        LEFT JOIN applied_files f ON f.sha256 = s.limits_sha256 ORDER BY s.lot_key""")
-
-    # Limits and grade order: the first lot's limit table, as the folder summary takes them.
-    table = None
-    limits = pd.DataFrame(columns=["GRADE", "PARAM", "REGION", "LSL", "USL", "UNITS"])
+    table, limit_hashes = first_limit_table(engine, sel)
+    limits = table_limits(table) if table is not None else \
+        pd.DataFrame(columns=["GRADE", "PARAM", "REGION", "LSL", "USL", "UNITS"])
     source = "no limit table in the store for these lots"
-    if not limit_hashes.empty and isinstance(limit_hashes["content"].iloc[0], str):
-        table = parse_limit_table(limit_hashes["content"].iloc[0], "limits.yaml (from the store)")
-        limits = table_limits(table)
+    if table is not None:
         first = lots.iloc[0]
         source = (f"limits.yaml of lot {first['lot_id']} on station {first['station']} "
                   f"(sha256 {str(limit_hashes['sha256'].iloc[0])[:12]}...)")
@@ -216,8 +225,19 @@ def summarise_sql(engine: Engine, sel: Selection, by: str | None = None,
         notes=[f"from the {engine.name}: {sel.describe()}", *figure_notes(stat_frame, cpk)])
     if by is not None:
         summary.by = by
-        summary.by_table = _yield_by(engine, sel, by, grade_order)
+        summary.by_table = yield_by_sql(engine, sel, by, grade_order, shifts)
     return summary
+
+
+def first_limit_table(engine: Engine, sel: Selection) -> tuple[LimitTable | None, pd.DataFrame]:
+    """The first selected lot's limit table (lot_order), as the folder summary takes the first
+    folder's; and (lot_key, sha256) of every selected lot."""
+    hashes = query_selected(engine, sel, f"""SELECT s.lot_key, s.limits_sha256 AS sha256, f.content FROM sel_lots s
+                                    LEFT JOIN applied_files f ON f.sha256 = s.limits_sha256
+                                    ORDER BY {lot_order('s')}""")
+    if hashes.empty or not isinstance(hashes["content"].iloc[0], str):
+        return None, hashes
+    return parse_limit_table(hashes["content"].iloc[0], "limits.yaml (from the store)"), hashes
 
 
 def _elapsed_hours(lots: pd.DataFrame, spans: pd.DataFrame, first_t: pd.DataFrame) -> float:
@@ -280,14 +300,32 @@ _BY_KEY = {"station": "station", "lot": "lot_id", "site": "site_num",
            "hour": "floor(coalesce(end_t, 0) / 3600.0)"}
 
 
-def _yield_by(engine: Engine, sel: Selection, by: str, grade_order: list[str]) -> pd.DataFrame:
-    key = _BY_KEY[by]                  # one of the constants above, never input
-    counts = _query(engine, sel, f"""SELECT {key} AS key, count(*) AS tested,
+def yield_by_sql(engine: Engine, sel: Selection, by: str, grade_order: list[str],
+                 shifts: ShiftCalendar | None = None) -> pd.DataFrame:
+    source, key, extra_ctes, extra = "sel_parts", "", "", []
+    if by == "shift":
+        # The shifts that overlap the selected parts, as a table of [t0, t1) windows.
+        if shifts is None:
+            raise ValueError("grouping by shift needs the floor's shift calendar")
+        span = query_selected(engine, sel, "SELECT min(end_t) AS t0, max(end_t) AS t1 FROM sel_parts")
+        t0, t1 = span["t0"].iloc[0], span["t1"].iloc[0]
+        windows = shifts.windows_between(float(t0), float(t1)) if pd.notna(t0) and pd.notna(t1) else []
+        rows = [(w.label, w.start_t, w.end_t) for w in windows] or [(NO_SHIFT, 0.0, 0.0)]
+        extra_ctes = f""",
+    windows AS (SELECT * FROM (VALUES {", ".join("(%s, %s, %s)" for _ in rows)}) AS w(label, t0, t1))"""
+        extra = [v for row in rows for v in row]
+        source = "sel_parts p LEFT JOIN windows w ON p.end_t >= w.t0 AND p.end_t < w.t1"
+        key = f"coalesce(w.label, '{NO_SHIFT}')"     # a constant of ours, never input
+    else:
+        key = _BY_KEY[by]                  # one of the constants above, never input
+    counts = query_selected(engine, sel, f"""{extra_ctes}
+                                     SELECT {key} AS key, count(*) AS tested,
                                             count(*) FILTER (WHERE pass = 1) AS good,
                                             count(*) FILTER (WHERE pass = 0) AS failed
-                                     FROM sel_parts GROUP BY {key}""")
-    per_grade = _query(engine, sel, f"""SELECT {key} AS key, grade, count(*) AS n FROM sel_parts
-                                        WHERE pass = 1 GROUP BY {key}, grade""")
+                                     FROM {source} GROUP BY {key}""", extra=extra)
+    per_grade = query_selected(engine, sel, f"""{extra_ctes}
+                                        SELECT {key} AS key, grade, count(*) AS n FROM {source}
+                                        WHERE pass = 1 GROUP BY {key}, grade""", extra=extra)
 
     def label(value: object) -> str:
         if by == "site":

@@ -56,3 +56,56 @@ def test_store_export_gives_the_same_history(store: str, folders: list[Path], tm
 def test_summary_of_a_folder_without_history_is_refused(tmp_path: Path) -> None:
     result = CliRunner().invoke(main, ["summary", "--parquet", str(tmp_path)])
     assert result.exit_code == 2 and "no Parquet history here" in result.output
+
+
+def _rows(out: Path, table: str) -> int:
+    return sum(pq.read_table(f).num_rows for f in (out / table).rglob("*.parquet"))
+
+
+def test_a_growing_lot_is_exported_piece_by_piece(tmp_path: Path) -> None:
+    import json
+
+    folder = make_datalog(tmp_path / "a", LotSpec(parts=12, tester_faults=0, retests=0))
+    out = tmp_path / "history"
+    runner = CliRunner()
+    # The lot is running: its last index (4 parts) is still under test.
+    (folder / "in_progress.json").write_text(json.dumps({"lot_id": "LOT-T1", "ids": ["P00009"],
+                                                         "presented_before": 8, "parts_rows": 8,
+                                                         "results_rows": 0, "t": 0.0}))
+    first = runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)])
+    assert first.exit_code == 0 and "8 parts (written)" in first.output, first.output
+    (folder / "in_progress.json").unlink()
+    second = runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)])
+    assert second.exit_code == 0 and "12 parts (4 new)" in second.output, second.output
+    pieces = sorted(p.name for p in (out / "parts").rglob("*.parquet"))
+    assert len(pieces) == 2 and sum(p.endswith("-000000008.parquet") for p in pieces) == 1   # part_seq from 0
+    assert _rows(out, "parts") == 12
+    logs = load_datalogs([folder])
+    assert _rows(out, "results") == len(logs.results)
+    assert_same_summary(parquet_summary(out, Selection()), summarise(logs))
+    again = runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)])
+    assert "12 parts (0 new), 0 results written" in again.output and _rows(out, "parts") == 12
+
+
+def test_a_lot_rewritten_by_a_resume_replaces_its_pieces(tmp_path: Path) -> None:
+    import json
+
+    folder = make_datalog(tmp_path / "a", LotSpec(parts=12, tester_faults=0, retests=0))
+    out = tmp_path / "history"
+    runner = CliRunner()
+    (folder / "in_progress.json").write_text(json.dumps({"lot_id": "LOT-T1", "ids": ["P00009"],
+                                                         "presented_before": 8, "parts_rows": 8,
+                                                         "results_rows": 0, "t": 0.0}))
+    assert runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)]).exit_code == 0
+    (folder / "in_progress.json").unlink()
+    assert runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)]).exit_code == 0
+    # A resume retested the last part: same id, a later end time, so the pieces no longer agree.
+    lines = (folder / "parts.csv").read_text().splitlines(keepends=True)
+    head, end_t = lines[-1].rsplit(",", 1)
+    lines[-1] = f"{head},{float(end_t) + 60.0}\n"
+    (folder / "parts.csv").write_text("".join(lines))
+    third = runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)])
+    assert third.exit_code == 0 and "12 parts (written)" in third.output, third.output
+    assert len(list((out / "parts").rglob("*.parquet"))) == 1 and _rows(out, "parts") == 12
+    assert len(list((out / "results").rglob("*.parquet"))) == 1
+    assert_same_summary(parquet_summary(out, Selection()), summarise(load_datalogs([folder])))

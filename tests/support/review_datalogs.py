@@ -48,7 +48,7 @@ class LotSpec:
     opens: int = 3
     shorts: int = 2
     retests: int = 4                  # failed parts tested again at the end
-    start_t: float = 1_796_061_600.0  # 2026-12-01 18:00:00 UTC
+    start_t: float = 1_796_061_600.0  # 2026-11-30 18:00:00 UTC
     index_s: float = 2.0              # one index (all sites) takes this long
     limits_text: str | None = None    # default: limits/px401.yaml
 

@@ -60,7 +60,7 @@ def test_a_password_in_the_url_never_appears_in_output_or_files(pg_server, store
     outputs = []
     for args in (["dry-run", "--parts", "4", "--speed", "1000", "--out", str(out), "--lot", "PW-1", "--store", url],
                  ["publish", str(out), "--store", url],
-                 ["summary", "--store", url, "--by", "station"],
+                 ["summary", "--store", url, "--by", "station", "--html", str(tmp_path / "report.html")],
                  ["export", "--store", url, "--to", "parquet", str(tmp_path / "history")],
                  ["store", "init", url],
                  ["publish", str(out), "--store", url.replace("/t_", "/no_such_db_")],
@@ -70,6 +70,7 @@ def test_a_password_in_the_url_never_appears_in_output_or_files(pg_server, store
         outputs.append(done.stdout + done.stderr)
     assert "4 part(s) of this lot published" in outputs[0]
     assert "cannot reach the store" in outputs[5]
+    assert "store postgresql://station@" in (tmp_path / "report.html").read_text(encoding="utf-8")
     for text in outputs:
         assert PASSWORD not in text
     for path in tmp_path.rglob("*"):

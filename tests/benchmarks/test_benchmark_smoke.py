@@ -39,5 +39,11 @@ def test_benchmark_smoke_gives_every_figure(tmp_path, capsys):
         assert key in figures, key
         assert figures[key] is not None and math.isfinite(figures[key]), (key, figures[key])
     assert set(figures["cmrr_rms_error_db"]) == {"low", "high"}
-    assert figures["machine"]["cores"] >= 1
+    assert figures["machine"]["cores"] >= 1 and figures["machine"]["cpu"]
+    # every section says whether other work ran meanwhile, and its target keys are marked if so
+    assert set(figures["load"]) == {"floor", "multisite", "accuracy", "overhead", "datalog", "summary", "transports"}
+    for section, watch in figures["load"].items():
+        assert isinstance(watch["loaded"], bool), section
+        assert watch["other_processes_cpu_share"] is None or watch["other_processes_cpu_share"] >= 0
+    assert all(key in figures for key in figures["loaded_keys"])
     assert "floor_ratio" in capsys.readouterr().out  # the table was printed

@@ -19,7 +19,8 @@ import yaml
 from benchmarks.datalog_speed import grow_datalog, summary_seconds, writer_rows_per_s
 from benchmarks.lot_run import LotRun, run_lot
 from benchmarks.machine import LoadWatch, machine_info
-from benchmarks.overhead import replay, replay_through_links, station_on_ideal_bench
+from benchmarks.memory import soak_rss, summary_peak_rss
+from benchmarks.overhead import ideal_settings, replay, replay_through_links, station_on_ideal_bench
 from benchmarks.physics_floor import FloorBench, index_floor, worst_case_wait
 from benchmarks.report import TARGETS, print_report
 from benchmarks.sizes import SIZES, Sizes
@@ -39,7 +40,7 @@ SEED = 11
 OWN_PROCESS = True
 # In the order they run; `--only` takes one or more of them (comma-separated); "timing" is
 # floor and multisite together, as in earlier versions.
-SECTIONS = ("floor", "multisite", "accuracy", "overhead", "datalog", "summary", "transports")
+SECTIONS = ("floor", "multisite", "accuracy", "overhead", "datalog", "summary", "soak", "transports")
 ALIASES = {"timing": ("floor", "multisite")}
 
 
@@ -102,6 +103,7 @@ def floor(sizes: Sizes, work: Path, fixed_path: Path) -> dict:
         "fixed_test_s_per_part": _median(f[1] for f in fixed_floors),
         "adaptive_speedup": _median(speedups),
         "timeouts_per_part": _median(r.stats.timeouts / r.parts_count for r in adaptive),
+        "station_cpu_ms_per_part_1_site": _median(1e3 * r.cpu_s / r.parts_count for r in adaptive),
         "groups_per_condition": _median(r.stats.readings / r.stats.conditions for r in adaptive),
     }
 
@@ -110,13 +112,15 @@ def multisite(sizes: Sizes, work: Path) -> dict:
     """1-site and 4-site lots of the same parts, and one 4-site lot with one DMM behind the scanner."""
     multi = SimSettings(seed=SEED, sites=4, parts=sizes.multisite_parts, speed=sizes.timing_speed)
     one = SimSettings(seed=SEED, sites=1, parts=sizes.multisite_parts, speed=sizes.timing_speed)
-    ratios, scanner_ratios, four_floor = [], [], []
+    ratios, scanner_ratios, four_floor, cpu_ms, cpu_pct = [], [], [], [], []
     pph: dict[str, float] = {}
     for rep in range(sizes.repeats):
         single = run_lot(one, DEMO_SEQUENCE, DEMO_LIMITS, work / f"one{rep}", separate_process=OWN_PROCESS)
         four = run_lot(multi, DEMO_SEQUENCE, DEMO_LIMITS, work / f"four{rep}", separate_process=OWN_PROCESS)
         ratios.append(four.parts_per_hour / single.parts_per_hour)
         four_floor.append(steady_floor_ratio(four, DEMO_SEQUENCE)[0])
+        cpu_ms.append(1e3 * four.cpu_s / four.parts_count)
+        cpu_pct.append(100.0 * four.cpu_s / sum(four.index_s))
         if rep == 0:
             scan = run_lot(SimSettings(seed=SEED, sites=4, parts=sizes.multisite_parts, speed=sizes.timing_speed,
                                        dmm_per_site=False), DEMO_SEQUENCE, DEMO_LIMITS, work / "scanner",
@@ -131,6 +135,10 @@ def multisite(sizes: Sizes, work: Path) -> dict:
         "multisite_speedup_4_runs": [round(r, 3) for r in ratios],
         "multisite_speedup_4_single_dmm": _median(scanner_ratios),
         "parts_per_hour": pph,
+        # The 4-site lots at speed 1, the bench in its own process: CPU of the station's
+        # process (all threads) over the lot, per part and over the handler indexes' test time.
+        "station_cpu_ms_per_part": _median(cpu_ms),
+        "station_cpu_pct_of_test_time": _median(cpu_pct),
     }
 
 
@@ -189,7 +197,18 @@ def summary(sizes: Sizes, work: Path, source: Path) -> dict:
     total = _median(t[0] for t in times)
     return {"summary_rows": rows, "summary_load_and_summarise_s": total,
             "summary_summarise_only_s": _median(t[1] for t in times),
-            "summary_1m_rows_s": total * 1_000_000 / rows}
+            "summary_1m_rows_s": total * 1_000_000 / rows, **summary_peak_rss(work / "big")}
+
+
+def soak(sizes: Sizes, work: Path) -> dict:
+    """The station's RSS growth over a long lot, time-compressed to the limit: the ideal bench
+    (no settling, no integration wait, no handler index time) and no deliberate waits, so
+    10,000 parts take minutes; every part goes through the same readings, grading, PAT, lot
+    control and datalog as on a real bench."""
+    settings = ideal_settings(SimSettings(seed=SEED, sites=4, parts=sizes.soak_last))
+    settings = dataclasses.replace(settings, log_commands=False)
+    return soak_rss(settings, DEMO_SEQUENCE, DEMO_LIMITS, work / "soak", sizes.soak_first, sizes.soak_last,
+                    sleep=lambda seconds: None)
 
 
 def summary_source(sizes: Sizes, work: Path, accuracy_folder: str | None) -> Path:
@@ -269,6 +288,7 @@ def main(argv: list[str] | None = None) -> dict:
             "overhead": lambda: overhead(sizes, work),
             "datalog": lambda: datalog(sizes, work),
             "summary": lambda: summary(sizes, work, summary_source(sizes, work, figures.get("accuracy_datalog"))),
+            "soak": lambda: soak(sizes, work),
             "transports": lambda: transport_round_trips(sizes.round_trips),
         }
         for section in SECTIONS:

@@ -75,7 +75,10 @@ def print_report(figures: dict, console: Console | None = None) -> None:
     detail = Table(title="details")
     detail.add_column("figure")
     detail.add_column("value")
-    for key in ("test_s_per_part", "floor_s_per_part", "fixed_test_s_per_part", "fixed_wait_s",
+    for key in ("floor_ratio_runs", "floor_ratio_4_sites_runs", "multisite_speedup_4_runs",
+                "station_cpu_ms_per_part_1_site", "soak_rss_mb", "soak_parts", "soak_wall_s",
+                "summary_imports_rss_mb", "summary_fresh_process_s",
+                "test_s_per_part", "floor_s_per_part", "fixed_test_s_per_part", "fixed_wait_s",
                 "groups_per_condition", "timeouts_per_part", "overhead_ratio_range",
                 "overhead_ratio_fastest_runs", "replay_ms_per_transaction", "transactions", "accuracy_parts", "misbins", "compare_parts", "summary_rows",
                 "summary_load_and_summarise_s", "summary_summarise_only_s"):

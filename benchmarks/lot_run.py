@@ -36,6 +36,7 @@ class LotRun:
     index_s: list[float]          # test time of each handler index (TEST_T), s
     stats: ReadingStats
     transactions: int             # SCPI messages the station sent
+    cpu_s: float = 0.0            # the station process's CPU time (every thread) during the lot
     command_log: list[CommandRecord] = field(default_factory=list)
     sim: SimBench | None = None   # stopped bench (in process only): its truth stays readable
 
@@ -79,7 +80,9 @@ def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
                                on_part=on_part)
             start_wall = time.time()
             start = time.monotonic()
+            cpu_start = time.process_time()
             tally = runner.run()
+            cpu_s = time.process_time() - cpu_start
             elapsed = time.monotonic() - start
             transactions = sum(link.transactions for link in bench.all_links().values())
             runner.reader.close()
@@ -90,7 +93,7 @@ def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
     sim.write_truth(out / "sim_truth.csv")  # after the stop: a bench process sends it then
     parts = pd.read_csv(out / "parts.csv")
     index_s = _index_times(parts)
-    return LotRun(out, parts, elapsed, start_wall, index_s, runner.reader.stats, transactions,
+    return LotRun(out, parts, elapsed, start_wall, index_s, runner.reader.stats, transactions, cpu_s,
                   list(sim.command_log), sim if isinstance(sim, SimBench) else None)
 
 

@@ -21,6 +21,8 @@ class Sizes:
     summary_rows: int       # result rows of the datalog the review summary reads
     overhead_repeats: int   # the overhead figure is the noisiest and its lots are short
     round_trips: int = 2000  # *IDN? queries per transport (HiSLIP against raw socket)
+    soak_first: int = 500    # the soak's RSS growth is from after this many parts ...
+    soak_last: int = 10_000  # ... to after this many
 
     def as_dict(self) -> dict:
         return dataclasses.asdict(self)
@@ -28,6 +30,7 @@ class Sizes:
 
 SIZES = {
     "full": Sizes("full", 3, 12, 12, 1.0, 1000, 200, 10.0, 16, 2000, 1_000_000, 5),
-    "quick": Sizes("quick", 1, 4, 4, 1.0, 60, 20, 10.0, 8, 500, 1_000_000, 5),
-    "smoke": Sizes("smoke", 1, 2, 4, 5.0, 12, 8, 20.0, 4, 20, 20_000, 1, round_trips=100),
+    "quick": Sizes("quick", 1, 4, 4, 1.0, 60, 20, 10.0, 8, 500, 1_000_000, 5, soak_last=2000),
+    "smoke": Sizes("smoke", 1, 2, 4, 5.0, 12, 8, 20.0, 4, 20, 20_000, 1, round_trips=100,
+                   soak_first=8, soak_last=24),
 }

@@ -156,7 +156,8 @@ def _escaped(part: PartTruth, grade_name: str, sequence: Sequence, table: LimitT
 
 ERROR_FIGURES = {"vos": ("vos", ""), "cmrr_slope_low": ("cmrr_slope", "low"),
                  "cmrr_slope_high": ("cmrr_slope", "high"), "cmrr_db_low": ("cmrr", "low"),
-                 "cmrr_db_high": ("cmrr", "high"), "aol_db": ("aol", ""), "psrr_slope": ("psrr_slope", "")}
+                 "cmrr_db_high": ("cmrr", "high"), "aol_db": ("aol", ""), "psrr_slope": ("psrr_slope", ""),
+                 "ib_plus": ("ib_plus", ""), "ib_minus": ("ib_minus", ""), "ios": ("ios", "")}
 
 
 def _errors(results: pd.DataFrame, expected: dict[str, dict[tuple[str, str], float]]) -> dict[str, float]:

@@ -66,6 +66,19 @@ class LoopDmm:
     def read_samples(self) -> list[float]:
         return self.link.query_floats("READ?", timeout_s=self._wait_s(), unit="V")
 
+    def read_count(self, samples: int) -> list[float]:
+        """Trigger `samples` samples and read them; a new count is set in the same message
+        (`SAMP:COUN n;:READ?`, one round trip) and stays for later reads."""
+        if isinstance(samples, bool) or not isinstance(samples, int) or not 1 <= samples <= SAMPLES_MAX:
+            raise RequestRefused(self.role, "sample count", samples, f"1 to {SAMPLES_MAX}")
+        if samples == self.samples:
+            return self.read_samples()
+        per_sample = self.integration_time_s / self.samples
+        values = self.link.query_floats(f"SAMP:COUN {samples};:READ?",
+                                        timeout_s=self.link.timeout_s + per_sample * samples, unit="V")
+        self.samples = samples
+        return values
+
     def start(self) -> None:
         """INIT: start integrating now; collect with fetch()."""
         self.link.write("INIT")

@@ -18,6 +18,7 @@ from pydantic import AfterValidator
 from drivers.dmm import RANGES_V as DMM_RANGES_V
 from drivers.supply import INSTRUMENT_MAX_A as SUPPLY_MAX_A
 from drivers.supply import INSTRUMENT_MIN_A as SUPPLY_MIN_A
+from station.config.approach import Approach
 from station.config.fields import Flag, Strict, Text, quantity, refuse
 from station.config.files import (
     ConfigError,
@@ -81,6 +82,7 @@ class TestStep:
     levels_v: tuple[float, ...] = ()     # gain: commanded output levels
     spans_v: tuple[float, ...] = ()      # supply_rejection: supply spans
     applications: str | None = None      # budget: application file, relative to the sequence file
+    predict: Approach | None = None      # bias_current: predicted settling after each relay change
     line: int | None = None              # line of the entry in the sequence file, for errors
 
     def point_vcms(self, span_v: float) -> tuple[float, ...]:

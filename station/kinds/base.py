@@ -94,6 +94,13 @@ class StepScreen(Protocol):
         """Settle as the step says, then the input offset (V) of each site, as things stand."""
         ...
 
+    def read_after_relay(self, step: TestStep, sites: list[int], before: dict[int, float],
+                         rb_in: dict[int, float]) -> dict[int, float]:
+        """The input offset (V) of each site after the bias relays moved from a settled state
+        whose offsets were `before`, the wait predicted by the step's `predict:` shape;
+        `rb_in` is the resistance now in series with each site's inputs (Ohm)."""
+        ...
+
 
 class TestKind(ABC):
     """One kind of test: `name` is what a sequence writes under `kind:`."""

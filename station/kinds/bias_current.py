@@ -10,10 +10,13 @@ integration from the sequence, like every reading.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Annotated, Any
 
+from station.config.approach import Approach
+from station.config.fields import Strict, plain_number, quantity
 from station.config.files import ConfigError
 from station.config.rail_points import rails_for
+from station.config.step_spec import SLIP_S, PositiveSeconds, Seconds, StepSpec
 from station.config.test_catalog import StepRows, StepTests
 from station.judge.measure import bias_figures
 from station.kinds.base import KindContext, SiteWork, StepScreen, TestKind, figure_rows
@@ -30,9 +33,31 @@ _TEXT = ("Vos with Rb shunted", "Vos with Rb in + input", "Vos with Rb in - inpu
 VISIT = (0, 1, 3, 2)
 
 
+class PredictSpec(Strict):
+    """predict: the shape of the approach after a bias relay moves (fixture characterisation)."""
+
+    tau: PositiveSeconds            # slowest fast constant: Rb x C of the fixture, or the loop's
+    tail: PositiveSeconds           # dielectric absorption's time constant ...
+    tail_share: Annotated[float, plain_number(ge=0, le=0.5, why="a share of the step, e.g. 0.01")]
+    delay: Seconds = 0.0            # relay operate time: the approach starts this late
+    max: Annotated[float, quantity("s", gt=0, le=60, why=SLIP_S)] = 0.5
+    sigmas: Annotated[float, plain_number(gt=0, le=10)] = 1.0
+
+
+class BiasCurrentSpec(StepSpec):
+    predict: PredictSpec | None = None
+
+
 class BiasCurrent(TestKind):
     name = "bias_current"
     title = "Input bias current"
+    spec = BiasCurrentSpec
+
+    def step_fields(self, spec: BiasCurrentSpec) -> dict[str, Any]:
+        shape = spec.predict
+        if shape is None:
+            return {}
+        return {"predict": Approach(shape.tau, shape.tail, shape.tail_share, shape.delay, shape.max, shape.sigmas)}
 
     def lay_out(self, step: TestStep, rows: StepRows, context: KindContext) -> None:
         for text in _TEXT:
@@ -47,9 +72,16 @@ class BiasCurrent(TestKind):
         sites = [p.site for p in parts]
         screen.set_rails(*rails_for(0.0, screen.context.span_v))
         readings: dict[int, list[float]] = {site: [0.0] * len(STATES) for site in sites}
-        for i in VISIT:
+        for n, i in enumerate(VISIT):
             screen.set_bias(sites, *STATES[i])
-            for site, value in screen.read_offsets(step, sites).items():
+            if step.predict is None or n == 0:   # the first state follows the step before: detect
+                found = screen.read_offsets(step, sites)
+            else:                                # one relay moved from a settled state: predict
+                in_series = sum(STATES[i])   # Rb in 0, 1 or 2 inputs
+                before = {site: readings[site][VISIT[n - 1]] for site in sites}
+                rb_in = {site: screen.bias_rb(site) * in_series for site in sites}
+                found = screen.read_after_relay(step, sites, before, rb_in)
+            for site, value in found.items():
                 readings[site][i] = value
         screen.set_bias(sites, False, False)  # after a fault the index shunts Rb on its way out
         for part in parts:

@@ -65,6 +65,7 @@ class IndexScreen:
         self._read_back = False        # the next rail setting is read back (after a recovery)
         self._bias: set[int] = set()   # bias relays closed (Rb in series); None of them at rest
         self._bias_unsure = False      # after a fault: the bias relays may be in any state
+        self._bias_moved_at = 0.0      # reader clock when the bias relays last moved (acknowledged)
 
     # --- what a kind sees (StepScreen) ---
     @property
@@ -103,6 +104,7 @@ class IndexScreen:
         if wanted != self._bias or self._bias_unsure:
             self.bench.switch.set_bias(wanted)
             self._bias, self._bias_unsure = wanted, False
+            self._bias_moved_at = self.reader.clock()
 
     def bias_rb(self, site: int) -> float:
         bias = self.bench.config.bias
@@ -112,6 +114,10 @@ class IndexScreen:
 
     def read_offsets(self, step: TestStep, sites: list[int]) -> dict[int, float]:
         return self.reader.read(sites, step)
+
+    def read_after_relay(self, step: TestStep, sites: list[int], before: dict[int, float],
+                         rb_in: dict[int, float]) -> dict[int, float]:
+        return self.reader.read_after_relay(sites, step, before, rb_in, self._bias_moved_at)
 
     def measure_iq(self, site: int, wait_s: float) -> float:
         self.bench.switch.power_sites({site})

@@ -298,10 +298,17 @@ class LotRunner:
             sites = {o.site for o in faulted}
             pending = [pid if site in sites else None for site, pid in enumerate(todo, start=1)]
         self._consecutive_faults = 0
+        judged, pat_ready = [], False
         for found, test_t_ms in sorted(finished, key=lambda item: item[0].site):
-            outcome = self._pat(found)
-            self._log(outcome, test_t_ms)
+            outcome, ready = self._pat(found)
+            judged.append((outcome, test_t_ms))
+            pat_ready = pat_ready or ready
+        self._log_all(judged)   # the index's parts committed together, before any is sorted
+        for outcome, _ in judged:
             self._final_bins[outcome.part_id] = outcome.verdict.hard_bin
+        if pat_ready:           # lot.json names the baseline parts once their rows are durable
+            self.tell(f"dynamic PAT: limits set from the first {len(self.pat.baseline)} passing parts")
+            self._write_header_fields({"pat": self.pat.lot_json()})
         self.writer.clear_in_progress()
         for outcome, _ in finished:
             verdict = self._verdicts.pop(outcome.part_id, outcome.verdict)
@@ -316,35 +323,42 @@ class LotRunner:
                       f"{self._final_bins[pid]} as logged")
             self._tolerant(partial(self.bench.handler.assign_bin, site, self._final_bins[pid], "as logged"))
 
-    def _pat(self, outcome: PartOutcome) -> PartOutcome:
-        """The part after PAT (station/screen); lot.json says when the dynamic limits are set."""
+    def _pat(self, outcome: PartOutcome) -> tuple[PartOutcome, bool]:
+        """The part after PAT (station/screen), and whether the dynamic limits were set by it."""
         from station.screen.pat_outcome import pat_outcome
 
         after, ready = pat_outcome(self.pat, outcome)
-        if ready:
-            self.tell(f"dynamic PAT: limits set from the first {len(self.pat.baseline)} passing parts")
-            self._write_header_fields({"pat": self.pat.lot_json()})
         self._verdicts[outcome.part_id] = after.verdict
-        return after
+        return after, ready
 
     def _mark(self, todo: list[str | None]) -> None:
         self.writer.mark_in_progress([pid for pid in todo if pid], presented_before=len(self._final_bins))
 
     def _log(self, outcome: PartOutcome, test_t_ms: int) -> None:
-        verdict = outcome.verdict
-        retest = outcome.part_id in self._seen_ids
-        self._seen_ids.add(outcome.part_id)
-        record = PartRecord(
-            part_id=outcome.part_id, site=outcome.site, hard_bin=verdict.hard_bin, soft_bin=verdict.soft_bin,
-            grade=verdict.grade if verdict.passed else None, passed=verdict.passed, test_t_ms=test_t_ms,
-            retest=retest, fail_test=verdict.failing.result.test_num if verdict.failing else None,
-            fault=outcome.fault, end_t=time.time())
+        self._log_all([(outcome, test_t_ms)])
+
+    def _log_all(self, outcomes: list[tuple[PartOutcome, int]]) -> None:
+        """Commit these parts' rows (one datalog commit, station/datalog/writer.write_parts),
+        then count them and tell the lot control and the live page."""
+        records = []
+        for outcome, test_t_ms in outcomes:
+            verdict = outcome.verdict
+            retest = outcome.part_id in self._seen_ids
+            self._seen_ids.add(outcome.part_id)
+            records.append(PartRecord(
+                part_id=outcome.part_id, site=outcome.site, hard_bin=verdict.hard_bin, soft_bin=verdict.soft_bin,
+                grade=verdict.grade if verdict.passed else None, passed=verdict.passed, test_t_ms=test_t_ms,
+                retest=retest, fail_test=verdict.failing.result.test_num if verdict.failing else None,
+                fault=outcome.fault, end_t=time.time()))
         with signals_held():        # a stop never falls between a part's results and its row
-            self.writer.write_part(record, outcome.rows)
-        self.tally.add(verdict.hard_bin, verdict.soft_bin, verdict.passed, verdict.grade, retest)
-        self.tally.session_parts += 1
-        self.guard.observe(record.part_id, record.site, record.passed, record.soft_bin)
-        self.on_part(record, self.tally)
+            self.writer.write_parts([(record, outcome.rows) for record, (outcome, _) in
+                                     zip(records, outcomes, strict=True)])
+        for record, (outcome, _) in zip(records, outcomes, strict=True):
+            verdict = outcome.verdict
+            self.tally.add(verdict.hard_bin, verdict.soft_bin, verdict.passed, verdict.grade, record.retest)
+            self.tally.session_parts += 1
+            self.guard.observe(record.part_id, record.site, record.passed, record.soft_bin)
+            self.on_part(record, self.tally)
 
     def _end_of_lot(self) -> dict:
         table, tally = self.plan.table, self.tally

@@ -29,11 +29,16 @@ from drivers.switch import FixtureSwitch
 from station.config.sequence import Settle, TestStep
 from station.judge.measure import vos_from_loop
 from station.lot.settle_rule import (
+    PREDICT_Z,
     group_tolerance,
+    johnson_rms,
     mean,
     noise_from_samples,
     predicted_residual,
+    predicted_wait,
+    step_bound,
     typical_noise,
+    window_envelope,
 )
 
 NOISE_SAMPLES = 16  # back-to-back samples per site that measure the noise at an NPLC
@@ -115,6 +120,26 @@ class SiteReader:
         futures = {site: pool.submit(self.dmms[site - 1].read_samples) for site in sites}
         return {site: future.result() for site, future in futures.items()}
 
+    def _group_of(self, sites: list[int], count: int) -> dict[int, tuple[float, list[float]]]:
+        """`count` samples per site (the count set with the trigger), with the time each
+        site's query was sent; per-site DMMs read at once, one DMM site after site."""
+        def one(site: int) -> tuple[float, list[float]]:
+            if not self.dmm_per_site:
+                assert self.switch is not None
+                self.switch.route_to_dmm(site)
+            sent = self.clock()
+            return sent, self.dmms[site - 1 if self.dmm_per_site else 0].read_count(count)
+
+        if not self.dmm_per_site or len(sites) == 1:
+            values = {site: one(site) for site in sites}
+        else:
+            pool = self._workers()
+            futures = {site: pool.submit(one, site) for site in sites}
+            values = {site: future.result() for site, future in futures.items()}
+        if self._config is not None:
+            self._config = (self._config[0], count)
+        return values
+
     def _workers(self) -> ThreadPoolExecutor:
         if self._pool is None:
             self._pool = ThreadPoolExecutor(max_workers=len(self.dmms), thread_name_prefix="dmm-read")
@@ -145,6 +170,55 @@ class SiteReader:
                     node.update(self._settle([site], settle, tolerance, begin))
         self.stats.settle_s += self.clock() - start
         return {site: vos_from_loop(value, self.loop_gain) for site, value in node.items()}
+
+    def read_after_relay(self, sites: list[int], step: TestStep, before: dict[int, float],
+                         rb_in: dict[int, float], changed_at: float) -> dict[int, float]:
+        """The offset (V RTI) of each site after a relay moved at `changed_at` (clock time of
+        its acknowledgement) from a settled state whose offsets were `before`, the wait
+        predicted from one early sample and the approach's known shape (`step.predict`,
+        station/lot/settle_rule). `rb_in`: the resistance now in series with each site's
+        inputs, whose Johnson noise is a lower bound of what the readings add."""
+        shape = step.predict
+        if shape is None:
+            raise ValueError(f"step {step.name!r} has no predict: shape; use read()")
+        if not sites:
+            return {}
+        self.configure(step.nplc, step.average)
+        self.stats.conditions += 1
+        start = self.clock()
+        origin = changed_at + shape.delay_s
+        window = step.nplc / self.dmms[0].line_hz
+        shunted = self.noise_rti.get(step.nplc, 0.0)   # measured with Rb shunted, if yet
+        ready: dict[int, float] = {}     # clock time each site's reading may start
+        offsets: dict[int, float] = {}   # one DMM: each site read as soon as it may be
+        probes = self._group_of(sites, 1) if self.dmm_per_site else {}
+        for site in sites:
+            sample = math.hypot(shunted, johnson_rms(rb_in[site], window))
+            tolerance = shape.sigmas * sample / math.sqrt(step.average)
+            if not self.dmm_per_site:   # one DMM: each site probed in turn, the others settling
+                probes.update(self._group_of([site], 1))
+            sent, values = probes[site]
+            probe = vos_from_loop(mean(values), self.loop_gain)
+            a = sent - origin
+            share = window_envelope(a, a + window, shape.tau_s, shape.tail_s, shape.tail_share)
+            slack = PREDICT_Z * (sample + math.hypot(shunted, sample) / math.sqrt(step.average)) + tolerance
+            bound = step_bound(probe, before[site], share, slack)
+            wait = predicted_wait(bound, tolerance, shape.tau_s, shape.tail_s, shape.tail_share)
+            if wait > shape.max_s:
+                self.stats.timeouts += 1
+                wait = shape.max_s
+            ready[site] = origin + wait
+            if not self.dmm_per_site:
+                self.sleep(max(0.0, ready[site] - self.clock()))
+                offsets[site] = vos_from_loop(mean(self._group_of([site], step.average)[site][1]), self.loop_gain)
+        self.stats.readings += 2
+        if not self.dmm_per_site:
+            self.stats.settle_s += self.clock() - start
+            return offsets
+        self.sleep(max(0.0, max(ready.values()) - self.clock()))
+        found = self._group_of(sites, step.average)
+        self.stats.settle_s += self.clock() - start
+        return {site: vos_from_loop(mean(values), self.loop_gain) for site, (_, values) in found.items()}
 
     def _tolerance_node_v(self, sites: list[int], step: TestStep, settle: Settle, start: float) -> float:
         if not settle.auto:

@@ -14,7 +14,8 @@ from station.config.sequence import load_sequence
 from station.demo import DEMO_SEQUENCE
 
 KEYS = ("floor_ratio", "adaptive_speedup", "overhead_ratio", "multisite_speedup_4", "misbin_rate",
-        "escapes", "datalog_rows_per_s", "summary_1m_rows_s", "hislip_round_trip_ratio")
+        "escapes", "datalog_rows_per_s", "summary_1m_rows_s", "hislip_round_trip_ratio",
+        "station_cpu_ms_per_part", "station_cpu_pct_of_test_time", "soak_rss_growth_mb", "summary_1m_peak_rss_mb")
 
 
 def test_physics_floor_holds_at_least_the_integrations():
@@ -39,5 +40,12 @@ def test_benchmark_smoke_gives_every_figure(tmp_path, capsys):
         assert key in figures, key
         assert figures[key] is not None and math.isfinite(figures[key]), (key, figures[key])
     assert set(figures["cmrr_rms_error_db"]) == {"low", "high"}
-    assert figures["machine"]["cores"] >= 1
+    assert figures["machine"]["cores"] >= 1 and figures["machine"]["cpu"]
+    # every section says whether other work ran meanwhile, and its target keys are marked if so
+    assert set(figures["load"]) == {"floor", "multisite", "accuracy", "overhead", "datalog", "summary", "soak",
+                                "transports"}
+    for section, watch in figures["load"].items():
+        assert isinstance(watch["loaded"], bool), section
+        assert watch["other_processes_cpu_share"] is None or watch["other_processes_cpu_share"] >= 0
+    assert all(key in figures for key in figures["loaded_keys"])
     assert "floor_ratio" in capsys.readouterr().out  # the table was printed

@@ -61,3 +61,22 @@ def test_existing_datalog_is_not_overwritten_without_force(tmp_path) -> None:
     with pytest.raises(DatalogError, match="already holds a datalog"):
         DatalogWriter(tmp_path / "lot")
     _start(tmp_path, force=True).finish({})
+
+
+def test_an_index_is_committed_with_two_syncs_results_first(tmp_path, monkeypatch) -> None:
+    import station.datalog.folder as folder
+
+    writer = _start(tmp_path)
+    vos = TestDef(2001, "Vos at nominal supply", "vos", None, 0.0)
+    synced: list[int] = []
+    real_fsync = folder.os.fsync
+    monkeypatch.setattr(folder.os, "fsync", lambda fd: (synced.append(fd), real_fsync(fd))[1])
+    index = [(PartRecord(f"D{k}", k, 1, 1, "A", True, 800, end_t=1.0), [ResultRow(vos, 1e-6 * k)])
+             for k in range(1, 5)]
+    writer.write_parts(index)
+    assert synced == [writer._results.fileno(), writer._parts.fileno()]  # results durable first
+    parts = pd.read_csv(tmp_path / "lot" / "parts.csv")
+    results = pd.read_csv(tmp_path / "lot" / "results.csv")
+    assert list(parts["PART_ID"]) == ["D1", "D2", "D3", "D4"] and list(parts["SITE_NUM"]) == [1, 2, 3, 4]
+    assert list(results["RESULT"]) == [1e-6, 2e-6, 3e-6, 4e-6]
+    assert writer.part_rows == 4 and writer.result_rows == 4

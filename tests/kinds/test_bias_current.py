@@ -158,3 +158,24 @@ def test_ios_from_both_rb_in_agrees_with_ib_plus_minus_ib_minus(dry_run):
         sigma = math.sqrt(2 * one ** 2 + two ** 2) / RB
         got = figures.loc[part_id]
         assert got["ios_both"] == pytest.approx(got["ios"], abs=BOUND_SIGMAS * sigma), part_id
+
+
+def test_one_dmm_behind_the_scanner_predicts_each_site_in_turn(tmp_path: Path):
+    # The predicted wait with one DMM: each site probed and read in turn (the others settling).
+    from benchmarks.lot_run import run_lot
+    from sim_instruments.bench import SimSettings
+
+    assert load_sequence(DEMO_SEQUENCE).steps("bias_current")[0].predict is not None
+    run = run_lot(SimSettings(seed=3, sites=4, parts=8, speed=20, dmm_per_site=False), DEMO_SEQUENCE,
+                  DEMO_LIMITS, tmp_path / "lot")
+    results = pd.read_csv(run.folder / "results.csv")
+    figures = results.pivot_table(index="PART_ID", columns="PARAM", values="RESULT", aggfunc="first")
+    truth = pd.read_csv(run.folder / "sim_truth.csv").set_index("PART_ID")
+    contacted = figures.index[figures["ib"].notna()]
+    assert len(contacted) >= 6
+    for part_id in contacted:
+        row = truth.loc[part_id]
+        sigma_ib = math.hypot(_reading_sigma(row, 0.0), _reading_sigma(row, RB)) / RB
+        got = figures.loc[part_id]
+        assert got["ib_plus"] == pytest.approx(row["IB_PLUS_A"], abs=BOUND_SIGMAS * sigma_ib), part_id
+        assert got["ib_minus"] == pytest.approx(row["IB_MINUS_A"], abs=BOUND_SIGMAS * sigma_ib), part_id

@@ -87,3 +87,58 @@ def test_sequence_accepts_auto_settling_and_keeps_the_absolute_form():
 def test_sequence_refuses_bad_auto_settling(settle, words):
     with pytest.raises(ConfigError, match=words):
         parse_sequence(SEQUENCE.replace("SETTLE", settle))
+
+
+# --- predicted settling (bias_current's predict:) ----------------------------------------
+
+SHAPE = dict(tau=5e-3, tail=60e-3, share=0.01)
+
+
+@pytest.mark.parametrize("a, b", [(0.0, 0.02), (0.003, 0.023), (-0.001, 0.019), (0.05, 0.07)])
+def test_window_envelope_is_the_average_of_the_envelope(a, b):
+    from scipy.integrate import quad  # numerical integration as the outside check
+
+    from station.lot.settle_rule import envelope, window_envelope
+
+    expected = quad(lambda t: envelope(t, SHAPE["tau"], SHAPE["tail"], SHAPE["share"]), a, b,
+                    points=[0.0] if a < 0 < b else None)[0] / (b - a)
+    assert window_envelope(a, b, SHAPE["tau"], SHAPE["tail"], SHAPE["share"]) == pytest.approx(expected, rel=1e-9)
+
+
+def test_step_bound_recovers_the_step_from_an_early_window():
+    from station.lot.settle_rule import step_bound, window_envelope
+
+    # A node approaching `new` from `before`: its 20 ms window average carries h of the step.
+    before, new = 10e-6, 210e-6
+    h = window_envelope(0.0, 0.02, SHAPE["tau"], SHAPE["tail"], SHAPE["share"])
+    probe = new + (before - new) * h
+    assert step_bound(probe, before, h, 0.0) == pytest.approx(abs(new - before), rel=1e-12)
+    assert step_bound(probe, before, h, 1e-6) > abs(new - before)       # slack only widens it
+    assert step_bound(math.inf, before, h, 0.0) == math.inf             # overload: unknown
+
+
+def test_predicted_wait_is_the_first_time_the_envelope_is_inside_the_tolerance():
+    from station.lot.settle_rule import envelope, predicted_wait
+
+    bound, tolerance = 300e-6, 3e-6
+    wait = predicted_wait(bound, tolerance, SHAPE["tau"], SHAPE["tail"], SHAPE["share"])
+    g = lambda t: bound * envelope(t, SHAPE["tau"], SHAPE["tail"], SHAPE["share"])  # noqa: E731
+    assert g(wait) <= tolerance * (1 + 1e-9) and g(wait * 0.999) > tolerance
+    # the RC part alone would need tau ln(0.99 bound / tol) = 23 ms; the 1 % tail is at 3 uV
+    # itself, so here the tail sets the wait, well beyond the RC time
+    assert wait > 5e-3 * math.log(0.99 * bound / tolerance)
+    assert predicted_wait(1e-6, tolerance, SHAPE["tau"], SHAPE["tail"], SHAPE["share"]) == 0.0
+    assert predicted_wait(math.inf, tolerance, SHAPE["tau"], SHAPE["tail"], SHAPE["share"]) == math.inf
+
+
+def test_johnson_noise_of_a_kilohm():
+    from scipy import constants
+
+    from station.lot.settle_rule import johnson_rms
+
+    # 1 kOhm at 290 K: sqrt(4kTR) = 4.0 nV/rtHz (common practice, no source; k from scipy);
+    # averaged over T = 20 ms the RMS is that density / sqrt(2T)
+    density = math.sqrt(4 * constants.k * 290.0 * 1e3)
+    assert density == pytest.approx(4.0e-9, rel=0.01)
+    assert johnson_rms(1e3, 0.02) == pytest.approx(density / math.sqrt(0.04), rel=1e-9)
+    assert johnson_rms(0.0, 0.02) == 0.0

@@ -25,7 +25,11 @@ import pandas as pd
 from station.datalog.header import header_problem
 from station.errors import Refused
 
-FORMAT = "ampscreen-datalog/1"
+# The format's versions. Each later version only appends columns to the CSV files
+# (ADDED_COLUMNS), so a folder of an earlier version is read by filling those cells empty.
+FORMAT_V1 = "ampscreen-datalog/1"
+FORMAT = "ampscreen-datalog/2"      # results.csv PAT_LO/PAT_HI, parts.csv RESCREEN
+FORMATS = {FORMAT_V1: 1, FORMAT: 2}
 
 LOT_JSON = "lot.json"
 RESULTS_CSV = "results.csv"
@@ -50,17 +54,21 @@ RESULT_CELLS: dict[str, str] = {
     "LOT_ID": "text", "PART_ID": "id", "HEAD_NUM": "int", "SITE_NUM": "int", "TEST_NUM": "int",
     "TEST_TXT": "text", "PARAM": "text", "REGION": "text", "VCM": "float?", "COND": "float?",
     "RESULT": "float", "UNITS": "text", "LO_LIMIT": "float?", "HI_LIMIT": "float?",
-    "PASS": "flag?", "GRADE": "text",
+    "PASS": "flag?", "GRADE": "text", "PAT_LO": "float?", "PAT_HI": "float?",
 }
 PART_CELLS: dict[str, str] = {
     "LOT_ID": "text", "PART_ID": "id", "HEAD_NUM": "int", "SITE_NUM": "int", "HARD_BIN": "int",
     "SOFT_BIN": "int", "GRADE": "text", "PASS": "flag?", "TEST_T": "float?", "RETEST": "flag",
-    "FAIL_TEST": "int?", "FAULT": "text", "END_T": "float?",
+    "FAIL_TEST": "int?", "FAULT": "text", "END_T": "float?", "RESCREEN": "flag?",
 }
 RESULT_COLUMNS = list(RESULT_CELLS)
 PART_COLUMNS = list(PART_CELLS)
 COLUMNS = {RESULTS_CSV: RESULT_COLUMNS, PARTS_CSV: PART_COLUMNS}
 CELLS = {RESULTS_CSV: RESULT_CELLS, PARTS_CSV: PART_CELLS}
+# Columns each version appended at the end of a file (version -> file -> columns).
+ADDED_COLUMNS: dict[int, dict[str, list[str]]] = {
+    2: {RESULTS_CSV: ["PAT_LO", "PAT_HI"], PARTS_CSV: ["RESCREEN"]},
+}
 
 # Characters a lot id may hold to become a folder name (datalogs/<lot id>): letters, digits,
 # '.', '_' and '-', starting with a letter or digit (so never '..', never a path).
@@ -178,6 +186,29 @@ def csv_text(rows: Sequence[Sequence[Any]], columns: Sequence[str] | None = None
     return buffer.getvalue()
 
 
+# --- versions ------------------------------------------------------------------------------
+
+def format_version(header: dict[str, Any]) -> int:
+    """The format version of a lot.json read by read_lot_header (1 or 2)."""
+    return FORMATS[str(header.get("format"))]
+
+
+def columns_of(name: str, version: int) -> list[str]:
+    """The columns of results.csv or parts.csv (by file name) in a format version."""
+    later = [c for v, added in ADDED_COLUMNS.items() if v > version for c in added.get(name, [])]
+    return [c for c in COLUMNS[name] if c not in later]
+
+
+def version_of_columns(name: str, first: list[str]) -> int | None:
+    """The format version whose columns a header line is, or None."""
+    return next((v for v in sorted(FORMATS.values(), reverse=True) if first == columns_of(name, v)), None)
+
+
+def upgrade_row(row: list[str], name: str) -> list[str]:
+    """A row of an earlier version as a row of the current columns (added cells empty)."""
+    return row + [""] * (len(COLUMNS[name]) - len(row))
+
+
 # --- reading -------------------------------------------------------------------------------
 
 def read_lot_header(folder: Path) -> dict[str, Any]:
@@ -193,9 +224,12 @@ def read_lot_header(folder: Path) -> dict[str, Any]:
         header = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, ValueError) as exc:
         raise DatalogError(f"cannot be read as JSON ({exc})", path=path) from None
-    if not isinstance(header, dict) or header.get("format") != FORMAT:
+    if not isinstance(header, dict) or header.get("format") not in FORMATS:
         found = header.get("format") if isinstance(header, dict) else None
-        raise DatalogError(f"not a datalog header (format {found!r}, expected {FORMAT!r})", path=path)
+        known = " or ".join(repr(f) for f in FORMATS)
+        raise DatalogError(f"not a datalog header (format {found!r}, expected {known})", path=path,
+                           hint="a newer station wrote it?" if str(found).startswith("ampscreen-datalog/")
+                           else None)
     problem = header_problem(header)
     if problem is not None:
         key, what = problem
@@ -204,14 +238,17 @@ def read_lot_header(folder: Path) -> dict[str, Any]:
     return header
 
 
-def read_rows(path: Path, *, torn: str = "refuse") -> tuple[list[list[str]], int]:
+def read_rows(path: Path, *, torn: str = "refuse", version: int | None = None) -> tuple[list[list[str]], int]:
     """The data rows of results.csv or parts.csv (by file name), each checked against the
-    format; and how many bytes of a torn last line (after the last newline) were dropped.
+    format and given in the current columns (a row of an earlier version has its added
+    cells empty); and how many bytes of a torn last line (after the last newline) were dropped.
 
     `torn`: "refuse" a torn last line, or "drop" it (resume: the process died inside a write).
+    `version`: the folder's format version (lot.json); its columns are required. None takes
+    the columns of any version.
     """
     path = Path(path)
-    columns, cells = COLUMNS[path.name], CELLS[path.name]
+    cells = CELLS[path.name]
     try:
         text = path.read_text(encoding="utf-8", errors="replace")
     except FileNotFoundError:
@@ -228,16 +265,20 @@ def read_rows(path: Path, *, torn: str = "refuse") -> tuple[list[list[str]], int
     first = next(reader, None)
     if first is None:
         raise DatalogError("empty: no column header line", path=path)
-    if first != columns:
+    found = version_of_columns(path.name, first)
+    if found is None or (version is not None and found != version):
+        columns = columns_of(path.name, version or max(FORMATS.values()))
         missing = [c for c in columns if c not in first]
         what = (f"missing column(s) {', '.join(missing)}" if missing
-                else f"the first line is not the {path.name} column header")
+                else f"the first line is not the {path.name} column header"
+                + (f" of format {version} (lot.json)" if version is not None else ""))
         raise DatalogError(what, path=path, line=1, hint="see docs/datalog-format.md")
+    columns = columns_of(path.name, found)
     body = []
     for row in reader:
         if row:                       # a blank line holds no row (as every CSV reader takes it)
             check_row(path, reader.line_num, row, columns, cells)
-            body.append(row)
+            body.append(upgrade_row(row, path.name))
     return body, dropped
 
 

@@ -15,7 +15,9 @@ A lot that reached its end (lot.json complete) but has no manifest.json was kill
 the end-of-lot commit: the state says `ended`, and the caller seals it
 (station/datalog/seal.py) instead of testing anything.
 
-`ResumeState.apply()` then rewrites the two CSV files with the whole parts only; the writer
+`ResumeState.apply()` then rewrites the two CSV files with the whole parts only, in the
+current format's columns (a folder of format 1 is upgraded, and its lot.json says so), with
+the RESCREEN marks of an earlier lot end cleared (the lot's end sets them again); the writer
 appends after them. Format: station/datalog/folder.py and docs/datalog-format.md.
 """
 
@@ -29,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from station.datalog.folder import (
+    FORMAT,
     MANIFEST,
     MARKER,
     PART_COLUMNS,
@@ -37,6 +40,7 @@ from station.datalog.folder import (
     RESULTS_CSV,
     DatalogError,
     csv_text,
+    format_version,
     match_results_to_parts,
     read_lot_header,
     read_rows,
@@ -81,6 +85,8 @@ class ResumeState:
 
     def apply(self) -> None:
         """Rewrite results.csv and parts.csv with the surviving rows (atomically, fsync'ed)."""
+        for row in self.part_rows:
+            row[_P["RESCREEN"]] = ""
         write_atomically(self.folder / RESULTS_CSV, csv_text(self.result_rows, RESULT_COLUMNS))
         write_atomically(self.folder / PARTS_CSV, csv_text(self.part_rows, PART_COLUMNS))
 
@@ -104,8 +110,12 @@ def inspect_resume(folder: Path, *, mode: str, sequence: Path, limits: Path,
         _check_same_file(folder, header, key, Path(given))
     warnings: list[str] = []
     torn = "refuse" if ended else "drop"   # an ended lot closed its files whole
-    parts = _read(folder / PARTS_CSV, torn, warnings)
-    results = _read(folder / RESULTS_CSV, torn, warnings)
+    version = format_version(header)
+    parts = _read(folder / PARTS_CSV, torn, warnings, version)
+    results = _read(folder / RESULTS_CSV, torn, warnings, version)
+    if version < format_version({"format": FORMAT}) and not ended:
+        warnings.append(f"the datalog is of format {header.get('format')}: its CSV files are rewritten "
+                        f"in {FORMAT} (the later columns empty for the parts logged so far)")
     interrupted: list[str] = []
     presented_before = len({row[_P["PART_ID"]] for row in parts})
     marker = None if ended else _read_marker(folder, header)
@@ -138,8 +148,8 @@ def _read_header(folder: Path) -> dict[str, Any]:
     return header
 
 
-def _read(path: Path, torn: str, warnings: list[str]) -> list[list[str]]:
-    rows, dropped = read_rows(path, torn=torn)
+def _read(path: Path, torn: str, warnings: list[str], version: int) -> list[list[str]]:
+    rows, dropped = read_rows(path, torn=torn, version=version)
     if dropped:  # every row ends in a newline; bytes after the last one are half a row
         warnings.append(f"{path.name}: dropped a torn last line ({dropped} bytes)")
     return rows

@@ -15,7 +15,10 @@ Choices the datalog leaves open, made here once:
 - Full hashes, file sources and every instrument's *IDN? string go into DTR records right
   after the MIR, where a MIR field has no room for them.
 - TSR statistics (min, max, sums) cover finite results only; TEST_TIM is not known.
-- LO_LIMIT/HI_LIMIT are the acceptance limits the station judged with. Where the limit table
+- LO_LIMIT/HI_LIMIT are the acceptance limits the station judged with. On a row screened by
+  PAT (PAT_LO/PAT_HI in results.csv, format 2) that is the tighter of the grade's limit and
+  the PAT window on each side, so a PAT-screened part's PTRs carry their own limits.
+  Where the limit table
   of the lot (its copy limits.yaml) is guard-banded, the specification limits go into the
   PTR's LO_SPEC/HI_SPEC (OPT_FLAG bits 2/3 cleared); elsewhere bits 2/3 say "no spec limit".
 """
@@ -36,6 +39,7 @@ from station.datalog.folder import (
     RESULTS_CSV,
     DatalogError,
     atomic_target,
+    format_version,
     match_results_to_parts,
     read_lot_header,
     read_rows,
@@ -102,8 +106,9 @@ def read_datalog(datalog_dir: Path) -> Datalog:
     so a bad cell is refused with file, line and column (station/datalog/folder.py)."""
     folder = Path(datalog_dir)
     lot = read_lot_header(folder)
-    results, _ = read_rows(folder / RESULTS_CSV)
-    parts, _ = read_rows(folder / PARTS_CSV)
+    version = format_version(lot)
+    results, _ = read_rows(folder / RESULTS_CSV, version=version)
+    parts, _ = read_rows(folder / PARTS_CSV, version=version)
     return Datalog(folder, lot, [dict(zip(RESULT_COLUMNS, r, strict=True)) for r in results],
                    [dict(zip(PART_COLUMNS, p, strict=True)) for p in parts])
 
@@ -112,6 +117,11 @@ def _number(text: str) -> float | None:
     """A CSV number cell: None when empty; 'inf' and '-inf' are over-range."""
     text = text.strip()
     return None if text == "" else float(text)
+
+
+def _tighter(limit: float | None, pat: float | None, pick: Any) -> float | None:
+    """The acceptance limit with a PAT window's side (None: that side has none)."""
+    return pat if limit is None else limit if pat is None else pick(limit, pat)
 
 
 def _int(row: dict[str, str], column: str, where: str) -> int:
@@ -250,6 +260,8 @@ def _ptr(row: dict[str, str], first: dict[int, _Limits], where: str, specs: Spec
     try:
         result = float(row["RESULT"])
         lo, hi = _number(row["LO_LIMIT"]), _number(row["HI_LIMIT"])
+        lo = _tighter(lo, _number(row.get("PAT_LO", "")), max)
+        hi = _tighter(hi, _number(row.get("PAT_HI", "")), min)
     except ValueError:
         raise DatalogError("RESULT or a limit is not a number", path=where) from None
     passed = row["PASS"].strip()

@@ -59,6 +59,8 @@ class ResultRow:
     high: float | None = None
     passed: bool | None = None
     grade: str | None = None
+    pat_low: float | None = None     # the PAT window the part was screened with (PAT_LO/PAT_HI)
+    pat_high: float | None = None
 
 
 @dataclass(frozen=True)
@@ -166,6 +168,9 @@ class DatalogWriter:
             for name in END_OF_LOT_FILES:
                 (self.folder / name).unlink(missing_ok=True)
             self.header = dict(state.header)
+            if self.header.get("format") != FORMAT:     # state.apply() rewrote the CSV files in it
+                self.header["format_upgraded"] = {"from": self.header.get("format"), "time": iso_utc(time.time())}
+                self.header["format"] = FORMAT
             self.header["instruments"] = header.get("instruments", self.header.get("instruments"))
             now = time.time()
             self.header["resumed"] = [*self.header.get("resumed", []), iso_utc(now)]
@@ -217,10 +222,10 @@ class DatalogWriter:
         results = csv_text([[_cell(v) for v in (
             lot, part.part_id, HEAD_NUM, part.site, row.test.test_num, row.test.test_txt, row.test.param,
             row.test.region or "", row.test.vcm, row.test.cond, float(row.value), row.test.units, row.low,
-            row.high, row.passed, row.grade)] for part, rows in parts for row in rows])
-        part_rows = csv_text([[_cell(v) for v in (
+            row.high, row.passed, row.grade, row.pat_low, row.pat_high)] for part, rows in parts for row in rows])
+        part_rows = csv_text([[_cell(v) for v in (   # RESCREEN stays empty until the lot end (seal)
             lot, part.part_id, HEAD_NUM, part.site, part.hard_bin, part.soft_bin, part.grade, part.passed,
-            part.test_t_ms, part.retest, part.fail_test, part.fault, round(part.end_t, 3))]
+            part.test_t_ms, part.retest, part.fail_test, part.fault, round(part.end_t, 3), None)]
             for part, _ in parts])
         try:
             if results:

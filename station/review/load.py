@@ -14,7 +14,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from station.datalog.folder import DatalogError, read_lot_header, read_rows
+from station.datalog.folder import (
+    DatalogError,
+    columns_of,
+    format_version,
+    read_lot_header,
+    read_rows,
+)
 from station.datalog.folder import match_results_to_parts as match_rows
 
 # Explicit dtypes: no type sniffing (slow, and a numeric-looking PART_ID must stay text).
@@ -23,16 +29,17 @@ RESULT_DTYPES: dict[str, object] = {
     "TEST_NUM": "int32", "TEST_TXT": "category", "PARAM": "category", "REGION": "category",
     "VCM": "float64", "COND": "float64", "RESULT": "float64", "UNITS": "category",
     "LO_LIMIT": "float64", "HI_LIMIT": "float64", "PASS": "float64", "GRADE": "category",
+    "PAT_LO": "float64", "PAT_HI": "float64",
 }
 PART_DTYPES: dict[str, object] = {
     "LOT_ID": "str", "PART_ID": "str", "HEAD_NUM": "int16", "SITE_NUM": "int16",
     "HARD_BIN": "int32", "SOFT_BIN": "int32", "GRADE": "str", "PASS": "float64",
     "TEST_T": "float64", "RETEST": "int8", "FAIL_TEST": "float64", "FAULT": "str",
-    "END_T": "float64",
+    "END_T": "float64", "RESCREEN": "float64",
 }
 # Only these columns may be empty and mean "none"; text columns keep "" as "".
-_RESULT_EMPTY = {c: [""] for c in ("VCM", "COND", "LO_LIMIT", "HI_LIMIT", "PASS")}
-_PART_EMPTY = {c: [""] for c in ("PASS", "FAIL_TEST", "TEST_T", "END_T")}
+_RESULT_EMPTY = {c: [""] for c in ("VCM", "COND", "LO_LIMIT", "HI_LIMIT", "PASS", "PAT_LO", "PAT_HI")}
+_PART_EMPTY = {c: [""] for c in ("PASS", "FAIL_TEST", "TEST_T", "END_T", "RESCREEN")}
 
 # Raw sweep points (not computed figures); summaries leave them out.
 RAW_PARAMS = frozenset({"vos_cm", "vos_force", "vos_span"})
@@ -109,8 +116,9 @@ def read_datalog_folder(folder: Path) -> tuple[dict, pd.DataFrame, pd.DataFrame,
         raise DatalogError(f"{folder}: not a datalog folder: {', '.join(missing)} missing "
                            "(a datalog holds lot.json, parts.csv and results.csv)")
     lot = read_lot_header(folder)
-    parts = _read_csv(folder / "parts.csv", PART_DTYPES, _PART_EMPTY)
-    results = _read_csv(folder / "results.csv", RESULT_DTYPES, _RESULT_EMPTY)
+    version = format_version(lot)
+    parts = _read_csv(folder / "parts.csv", PART_DTYPES, _PART_EMPTY, version)
+    results = _read_csv(folder / "results.csv", RESULT_DTYPES, _RESULT_EMPTY, version)
     notes = []
     if not lot.get("complete", False):
         notes.append("lot.json says the lot is not complete (still running, or it stopped early)")
@@ -135,30 +143,38 @@ def match_results_to_parts(results: pd.DataFrame, parts: pd.DataFrame) -> np.nda
     return np.where(position >= 0, parts["PART_SEQ"].to_numpy()[np.maximum(position, 0)], -1)
 
 
-def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]) -> pd.DataFrame:
+def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]], version: int) -> pd.DataFrame:
     """pandas' fast reader; when it objects, or a row is short, the format's row-by-row check
-    (station.datalog.folder.read_rows) names the file, line and column that are wrong."""
+    (station.datalog.folder.read_rows) names the file, line and column that are wrong. A
+    folder of an earlier format version gets the later columns, empty (NaN)."""
     if _torn(path):
-        read_rows(path)               # raises: torn last line, with its line number
+        read_rows(path, version=version)   # raises: torn last line, with its line number
     try:
         header = pd.read_csv(path, nrows=0).columns
     except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
         raise DatalogError(f"{path}: cannot read: {exc}") from None
-    missing = [c for c in dtypes if c not in header]
+    wanted = columns_of(path.name, version)
+    missing = [c for c in wanted if c not in header]
     if missing:
         raise DatalogError(f"{path}: columns missing: {', '.join(missing)} (see docs/datalog-format.md)")
+    if list(header) != wanted:        # another version's columns than lot.json names
+        read_rows(path, version=version)
     try:
-        frame = pd.read_csv(path, dtype=dtypes, keep_default_na=False, na_values=empty,
-                            engine="c", low_memory=False)
+        frame = pd.read_csv(path, dtype={c: t for c, t in dtypes.items() if c in wanted}, keep_default_na=False,
+                            na_values={c: v for c, v in empty.items() if c in wanted}, engine="c",
+                            low_memory=False)
     except (ValueError, pd.errors.ParserError) as exc:
-        read_rows(path)               # raises with the row, if the row check sees it
+        read_rows(path, version=version)   # raises with the row, if the row check sees it
         raise DatalogError(f"{path}: a value does not fit its column: {str(exc).splitlines()[0]}") from None
     # A row with fields missing at its end reads as empty cells; the last column that may
     # never be empty tells (RESULT in results.csv, RETEST in parts.csv).
     required = "RESULT" if "RESULT" in dtypes else "RETEST"
     if frame[required].isna().any():
-        read_rows(path)
+        read_rows(path, version=version)
         raise DatalogError(f"{path}: a row has no {required} (the file is damaged)")
+    for column, dtype in dtypes.items():   # columns of a later version than the folder's
+        if column not in frame:
+            frame[column] = pd.Series(np.nan, index=frame.index, dtype=dtype)
     return frame
 
 

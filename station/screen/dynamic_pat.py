@@ -6,8 +6,9 @@ per figure (never looser than the loosest grade) screens every later passing par
 baseline parts were sorted before the limits existed: at the end of the lot they are checked
 against them, and those outside make the re-screen list (lot.json pat.rescreen, shown by
 `station summary`). The limits, the part they apply from, the outliers and the re-screen list
-are kept in lot.json `pat`; the result row of the figure that made a part an outlier carries
-the PAT limit (LO_LIMIT/HI_LIMIT, PASS 0, GRADE "PAT").
+are kept in lot.json `pat`; every result row of a screened figure carries the window the part
+was screened with (PAT_LO/PAT_HI), and the row of the figure that made a part an outlier also
+carries it as its limit (LO_LIMIT/HI_LIMIT, PASS 0, GRADE "PAT").
 """
 
 from __future__ import annotations
@@ -63,6 +64,7 @@ class LotPat:
     limits: list[Limit] | None = None
     from_part: str = ""
     outliers: list[dict[str, Any]] = field(default_factory=list)
+    used: list[Limit] = field(default_factory=list)   # the PAT limits the last part was screened with
 
     def __post_init__(self) -> None:
         if self.preset is not None:
@@ -79,8 +81,10 @@ class LotPat:
     def screen(self, part_id: str, site: int, verdict: Verdict, results: list[Result]) -> tuple[Verdict, bool]:
         """(the part's verdict after PAT, whether the baseline became complete with this part)."""
         pat = self.table.pat
+        self.used = []
         if pat is None or verdict.passed is not True:
             return verdict, False
+        self.used = list(pat.limits)
         after = pat_verdict(verdict, results, pat.limits, self.table, "static")
         if after is not verdict:
             self._note(part_id, site, after, "static")
@@ -96,6 +100,7 @@ class LotPat:
             return verdict, False
         if not self.from_part:
             self.from_part = part_id
+        self.used += self.limits
         after = pat_verdict(verdict, results, self.limits, self.table, "dynamic")
         if after is not verdict:
             self._note(part_id, site, after, "dynamic")

@@ -110,7 +110,7 @@ def test_results_without_their_part_row_are_the_part_in_progress(tmp_path: Path)
     _lot(tmp_path, 2)
     with open(tmp_path / "results.csv", "a", newline="") as handle:   # P3 killed before its part row
         csv.writer(handle).writerow(["S-1", "P3", 1, 1, 2001, "Vos", "vos", "", 0.0, "", 3e-6, "V",
-                                     "", "", "", ""])
+                                     "", "", "", "", "", ""])
     state = _inspect(tmp_path)
     assert "P3" in state.interrupted and state.done_ids == {"P1", "P2"}
 
@@ -118,7 +118,7 @@ def test_results_without_their_part_row_are_the_part_in_progress(tmp_path: Path)
 def test_results_of_no_part_in_the_middle_refuse_the_resume(tmp_path: Path) -> None:
     _lot(tmp_path, 2)
     text = (tmp_path / "results.csv").read_text().splitlines(keepends=True)
-    stray = "S-1,Q9,1,1,2001,Vos,vos,,0.0,,3e-06,V,,,,\n"
+    stray = "S-1,Q9,1,1,2001,Vos,vos,,0.0,,3e-06,V,,,,,,\n"
     (tmp_path / "results.csv").write_text("".join([text[0], text[1], stray, *text[2:]]))
     with pytest.raises(DatalogError, match=r"results\.csv:3: .*Q9"):
         _inspect(tmp_path)

@@ -52,7 +52,7 @@ def test_torn_lines_and_orphan_results_are_dropped(tmp_path):
     _lot(tmp_path, 2)
     with open(tmp_path / "results.csv", "a", newline="") as handle:   # P3's results, no part row
         csv.writer(handle).writerow(["R-1", "P3", 1, 1, 2001, "Vos", "vos", "", 0.0, "", 3e-6, "V",
-                                     "", "", "", ""])
+                                     "", "", "", "", "", ""])
         handle.write("R-1,P3,1,1,20")                                   # and half a row
     with open(tmp_path / "parts.csv", "a") as handle:
         handle.write("R-1,P3,1,1,1,1,A")

@@ -104,6 +104,8 @@ class TestKind(ABC):
     title: ClassVar[str]                   # the test's name when the sequence gives none
     checks_contact: ClassVar[bool] = False  # runs on every seated part and decides its contact
     spec: ClassVar[type[StepSpec]] = StepSpec  # the keys of its entry in a sequence file
+    # The fixture the kind measures in (bench config fixture.kind); None: any fixture.
+    fixture: ClassVar[str | None] = "servo_loop"
 
     def step_fields(self, spec: Any) -> dict[str, Any]:
         """The kind's own fields of the TestStep record, from its validated entry (`spec`)."""

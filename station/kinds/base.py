@@ -94,6 +94,16 @@ class StepScreen(Protocol):
         """Settle as the step says, then the input offset (V) of each site, as things stand."""
         ...
 
+    @property
+    def bench_config(self) -> BenchConfig:
+        """The bench config (its fixture constants)."""
+        ...
+
+    def use_fixture(self, sites: list[int], fixture: str) -> None:
+        """Measure `sites` in `fixture` (servo_loop or diff_amp): the switch-over relays of a
+        fixture of both kinds; nothing where a site has one fixture only."""
+        ...
+
 
 class TestKind(ABC):
     """One kind of test: `name` is what a sequence writes under `kind:`."""

@@ -17,6 +17,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from drivers.errors import InstrumentError
+from station.config.bench_config import BenchConfig
 from station.config.limit_tables import LimitTable
 from station.config.plan import ScreenPlan
 from station.config.rail_points import rails_for
@@ -65,6 +66,8 @@ class IndexScreen:
         self._read_back = False        # the next rail setting is read back (after a recovery)
         self._bias: set[int] = set()   # bias relays closed (Rb in series); None of them at rest
         self._bias_unsure = False      # after a fault: the bias relays may be in any state
+        self._diff_sites: set[int] = set()  # sites switched to the difference amplifier
+        self._diff_unsure = False      # after a fault: the switch-over relays may be in any state
 
     # --- what a kind sees (StepScreen) ---
     @property
@@ -113,6 +116,19 @@ class IndexScreen:
     def read_offsets(self, step: TestStep, sites: list[int]) -> dict[int, float]:
         return self.reader.read(sites, step)
 
+    @property
+    def bench_config(self) -> BenchConfig:
+        return self.bench.config
+
+    def use_fixture(self, sites: list[int], fixture: str) -> None:
+        config = self.bench.config
+        if not config.switch_over_channels:
+            return
+        wanted = set(sites) if fixture == "diff_amp" else set()
+        if wanted != self._diff_sites or self._diff_unsure:
+            self.bench.switch.switch_to_diff_amp(wanted)
+            self._diff_sites, self._diff_unsure = wanted, False
+
     def measure_iq(self, site: int, wait_s: float) -> float:
         self.bench.switch.power_sites({site})
         self.sleep(wait_s)
@@ -137,6 +153,7 @@ class IndexScreen:
         self._rails = self._force = None
         self._read_back = True
         self._bias_unsure = self.bench.config.bias is not None
+        self._diff_unsure = bool(self.bench.config.switch_over_channels)
         self.reader.forget_config()
 
     # --- one index ---
@@ -157,6 +174,8 @@ class IndexScreen:
                 self.bench.switch.power_sites(set())  # parts are never handled powered
                 if self._bias or self._bias_unsure:   # the next index starts with Rb shunted
                     self.set_bias([], False, False)
+                if self._diff_sites or self._diff_unsure:
+                    self.use_fixture([], "servo_loop")     # ... and every site in the servo loop
             except InstrumentError:
                 pass
         return [self._grade(w) for w in work]
@@ -171,6 +190,8 @@ class IndexScreen:
         self.set_force(0.0)
         if self._bias_unsure:   # no reading is taken with an Rb left in series after a fault
             self.set_bias([], False, False)
+        if self._diff_unsure:   # ... nor with a site left on the wrong fixture
+            self.use_fixture([], "servo_loop")
         for step in seq.tests:
             kind = kind_of(step)
             parts = work if kind.checks_contact else [w for w in work if w.live]

@@ -34,6 +34,7 @@ class DriverSettings:
     dmm_short_relays: int = 0   # DMMs whose input a fixture relay (401..) can short
     handshake: HandshakeTiming | None = None   # a handler wired through digital I/O lines
     bias_channels: tuple[int, ...] = ()   # switch channels that put Rb in series with an input
+    switch_over_channels: tuple[int, ...] = ()  # per site: the relay to the difference amplifier
 
 
 class UnknownDriver(KeyError):
@@ -67,7 +68,8 @@ FORCE: Role[ForceSource] = Role("force", {
     "scpi-force-source": lambda link, s: ForceSource(link, s.max_rail_v)})
 DMM: Role[LoopDmm] = Role("dmm", {"scpi-dmm": lambda link, s: LoopDmm(link, s.line_hz)})
 SWITCH: Role[FixtureSwitch] = Role("switch", {
-    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.dmm_short_relays, s.bias_channels)})
+    "scpi-fixture-switch": lambda link, s: FixtureSwitch(link, s.sites, s.dmm_short_relays, s.bias_channels,
+                                                          s.switch_over_channels)})
 def _dio_handler(link: ScpiLink, settings: DriverSettings) -> DioHandshakeHandler:
     if settings.handshake is None:
         raise UnknownDriver("dio-handshake needs the bench config's handshake section")

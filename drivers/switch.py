@@ -1,6 +1,7 @@
 """The fixture relays: site power (10x), scanner to the first DMM (20x), output load (30x),
 and where the fixture has them, a short across DMM k's input (40k) and the bias-resistor
-relays the bench config names (closing one opens the shunt across Rb)."""
+relays the bench config names (closing one opens the shunt across Rb), and on a fixture of both
+kinds the switch-over of each site to the difference amplifier (7xx, named in the bench config)."""
 
 from __future__ import annotations
 
@@ -20,7 +21,7 @@ def channel_list(channels: Iterable[int]) -> str:
 
 class FixtureSwitch:
     def __init__(self, link: ScpiLink, sites: int, short_relays: int = 0,
-                 bias_channels: Iterable[int] = ()) -> None:
+                 bias_channels: Iterable[int] = (), switch_over_channels: Iterable[int] = ()) -> None:
         if not 1 <= sites <= MAX_SITES:
             raise RequestRefused(link.role, "sites", sites, f"1 to {MAX_SITES}")
         if not 0 <= short_relays <= MAX_SITES:
@@ -29,6 +30,7 @@ class FixtureSwitch:
         self.sites = sites
         self.short_relays = short_relays
         self.bias_channels = tuple(sorted(bias_channels))
+        self.switch_over_channels = tuple(switch_over_channels)   # index 0 = site 1
 
     @property
     def role(self) -> str:
@@ -73,7 +75,8 @@ class FixtureSwitch:
     def channels(self) -> list[int]:
         """Every relay of the fixture, bank by bank."""
         return ([bank + s for bank in (POWER, SCANNER, LOAD) for s in range(1, self.sites + 1)]
-                + [SHORT + k for k in range(1, self.short_relays + 1)] + list(self.bias_channels))
+                + [SHORT + k for k in range(1, self.short_relays + 1)] + list(self.bias_channels)
+                + sorted(self.switch_over_channels))
 
     def set_bias(self, closed: set[int]) -> None:
         """Close exactly `closed` of the bias relays (Rb in series), open the others, in one message."""
@@ -88,6 +91,21 @@ class FixtureSwitch:
             parts.append(f"ROUT:CLOS {channel_list(closed)}")
         if parts:
             self.link.write_and_wait(";:".join(parts))
+
+    def switch_to_diff_amp(self, sites: set[int]) -> None:
+        """Switch `sites` to the difference amplifier and every other site to the servo loop,
+        in one message (a fixture of kind both; channel per site from the bench config)."""
+        if not self.switch_over_channels:
+            raise RequestRefused(self.role, "switch-over", sorted(sites),
+                                 "none: the fixture has no switch-over relays (fixture.diff_amp.relays)")
+        wanted = {self.switch_over_channels[self._site(s) - 1] for s in sites}
+        others = set(self.switch_over_channels) - wanted
+        parts = []
+        if others:
+            parts.append(f"ROUT:OPEN {channel_list(others)}")
+        if wanted:
+            parts.append(f"ROUT:CLOS {channel_list(wanted)}")
+        self.link.write_and_wait(";:".join(parts))
 
     def open_all(self) -> None:
         self.link.write_and_wait("ROUT:OPEN:ALL")

@@ -11,6 +11,8 @@ import threading
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
+
 from sim_instruments.bench_errors import BenchErrorSpec, draw_bench_errors
 from sim_instruments.clock import ModelClock
 from sim_instruments.dialect import Dialect
@@ -27,8 +29,10 @@ from sim_instruments.model import (
     BIAS_PLUS_BANK,
     DEFAULT_COMPLIANCE_A,
     DEFAULT_RB_OHM,
+    SWITCH_OVER_BANK,
     BenchModel,
     FixtureSpec,
+    diff_amp_slope,
 )
 from sim_instruments.population import TRUTH_COLUMNS, PartTruth, make_population, truth_row
 from sim_instruments.server import CommandRecord, InstrumentServer
@@ -91,6 +95,12 @@ class SimSettings:
     # How the handler is reached: "scpi" (HANDler commands) or "dio" (a digital I/O
     # instrument, role handler, with the handler wired to its lines: sim_instruments/dio.py).
     handler_interface: str = "scpi"
+    # The fixture of each site: servo_loop, diff_amp, or both (relay 70k switches site k);
+    # one kind for every site, or one per site. The difference amplifier's gain and resistor
+    # tolerance; its mismatch is drawn per site from the seed (the truth: fixture_truth()).
+    fixture_kind: str | tuple[str, ...] = "servo_loop"
+    diff_gain: float = 1.0
+    diff_tolerance: float = 1e-4
 
     def transport_of(self, role: str) -> str:
         return self.transports.get(role, self.transport)
@@ -115,9 +125,17 @@ class SimBench:
         self.errors = (draw_bench_errors(settings.bench_errors, settings.sites, dmms)
                        if settings.bench_errors is not None else None)
         rb = tuple(settings.rb_ohm) or (DEFAULT_RB_OHM,)
+        kinds = ((settings.fixture_kind,) * settings.sites if isinstance(settings.fixture_kind, str)
+                 else tuple(settings.fixture_kind))
+        if len(kinds) != settings.sites or not set(kinds) <= {"servo_loop", "diff_amp", "both"}:
+            raise ValueError(f"fixture kinds {kinds}: one of servo_loop, diff_amp, both per site")
+        self.diff_resistor_errors = tuple(draw_resistor_errors(settings.seed, site, settings.diff_tolerance)
+                                          for site in range(1, settings.sites + 1))
+        slopes = tuple(diff_amp_slope(e, settings.diff_gain) for e in self.diff_resistor_errors)
         self.model = BenchModel(FixtureSpec(settings.sites, settings.rf_ohm, settings.rs_ohm,
-                                            settings.dmm_per_site, rb), ideal=settings.ideal,
-                                errors=self.errors)
+                                            settings.dmm_per_site, rb, kinds=kinds,
+                                            diff_gain=settings.diff_gain, diff_slope=slopes),
+                                ideal=settings.ideal, errors=self.errors)
         self.command_log: list[CommandRecord] = []
         self._log_lock = threading.Lock()
         self.resources: dict[str, str] = {}
@@ -242,6 +260,17 @@ class SimBench:
         truth.update(self.errors.as_dict(self.settings.rf_ohm, self.settings.rs_ohm))
         return truth
 
+    def fixture_truth(self) -> dict | None:
+        """The difference amplifier as built (None on a servo-loop-only bench): its gain, the
+        resistor errors drawn per site and the input-referred common-mode slope they give."""
+        fixture = self.model.fixture
+        if all(k == "servo_loop" for k in fixture.kinds):
+            return None
+        return {"kinds": list(fixture.kinds), "gain": fixture.diff_gain,
+                "tolerance": self.settings.diff_tolerance,
+                "resistor_errors": [list(e) for e in self.diff_resistor_errors],
+                "cm_slope": list(fixture.diff_slope)}
+
     def state(self) -> dict:
         with self.model.lock:
             return self.model.state(self.clock.now())
@@ -276,6 +305,7 @@ class SimBench:
             f"  line_frequency: {s.line_hz:g} Hz\n"
             f"  dmm_per_site: {'true' if s.dmm_per_site else 'false'}\n"
             "  dmm_short_relays: true\n"
+            f"{self._fixture_kind_text()}"
             "  bias:                 # Rb in series with each input; a channel opens its shunt\n"
             f"    rb: [{', '.join(_si(self.model.fixture.rb_of(k), 'Ohm') for k in sites)}]\n"
             f"    plus: [{', '.join(str(BIAS_PLUS_BANK * 100 + k) for k in sites)}]\n"
@@ -286,8 +316,26 @@ class SimBench:
             + (HANDSHAKE_TEXT if s.handler_interface == "dio" else "")
         )
 
+    def _fixture_kind_text(self) -> str:
+        kinds = self.model.fixture.kinds
+        if all(k == "servo_loop" for k in kinds):
+            return ""
+        s = self.settings
+        relays = (f", relays: [{', '.join(str(SWITCH_OVER_BANK * 100 + k) for k in range(1, s.sites + 1))}]"
+                  if "both" in kinds else "")
+        return (f"  kind: [{', '.join(kinds)}]\n"
+                f"  diff_amp: {{gain: {s.diff_gain:g}, tolerance: {s.diff_tolerance * 100:g} %{relays}}}\n")
+
     def write_bench_config(self, path: str | Path) -> None:
         Path(path).write_text(self.bench_config_text(), encoding="utf-8")
+
+
+def draw_resistor_errors(seed: int, site: int, tolerance: float) -> tuple[float, float, float, float]:
+    """The four resistors' errors of one site's difference amplifier: each uniform within
+    +-tolerance (invented: a resistor network's spread), from its own generator."""
+    rng = np.random.default_rng([seed, 7000 + site])
+    e1, e2, e3, e4 = (float(x) for x in rng.uniform(-tolerance, tolerance, 4))
+    return e1, e2, e3, e4
 
 
 def _si(value: float, unit: str) -> str:

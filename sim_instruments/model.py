@@ -151,6 +151,19 @@ def settle_time_to(error_rti: float, step_rti: float, part: PartTruth,
                        part.thermal_v_per_v * rail_step_v, part.tau_slow_s)
 
 
+SWITCH_OVER_BANK = 7   # relay 70k switches site k (of kind both) to the difference amplifier
+DIFF_AMP_R_OHM = 1e3   # invented: the difference amplifier's input resistors (its feedback: G x this)
+
+
+def diff_amp_slope(errors: tuple[float, float, float, float], gain: float) -> float:
+    """Input-referred common-mode slope of a difference amplifier whose resistors R1 (input to
+    -), R2 (- to output), R3 (input to +), R4 (+ to ground) are off by fractions `errors`:
+    to first order its common-mode gain is G (e1 - e2 - e3 + e4) / (1 + G), i.e. a slope of
+    (e1 - e2 - e3 + e4) / (1 + G) against the part's own common mode G Vin / (1 + G)."""
+    e1, e2, e3, e4 = errors
+    return (e1 - e2 - e3 + e4) / (1.0 + gain)
+
+
 @dataclass(frozen=True)
 class FixtureSpec:
     sites: int = 4
@@ -159,6 +172,18 @@ class FixtureSpec:
     dmm_per_site: bool = True
     rb_ohm: tuple[float, ...] = (DEFAULT_RB_OHM,) * 4   # bias resistor of each site
     capacitance_f: float = FIXTURE_CAPACITANCE_F
+    # Per site: servo_loop, diff_amp, or both (relay 70k switches site k to the amplifier).
+    kinds: tuple[str, ...] = ()
+    diff_gain: float = 1.0
+    diff_slope: tuple[float, ...] = ()   # per site: the resistor mismatch's slope (diff_amp_slope)
+
+    def kind_of(self, site: int) -> str:
+        return self.kinds[site - 1] if self.kinds else "servo_loop"
+
+    @property
+    def diff_cm_share(self) -> float:
+        """The part's common mode per volt at the tied inputs, G / (1 + G)."""
+        return self.diff_gain / (1.0 + self.diff_gain)
 
     def rb_of(self, site: int) -> float:
         return self.rb_ohm[site - 1] if site <= len(self.rb_ohm) else self.rb_ohm[-1]
@@ -292,13 +317,30 @@ class BenchModel:
         part = self.seated[site - 1]
         if part is None or self._saturated(site):
             return 0.0
-        gain = self.fixture.gain
+        gain = self.gain_of(site)
         rb_plus, rb_minus = self.rb_in_circuit(site)
-        sigma = gain * part_noise_rti(part, integration_s, self.fixture.rf_ohm, self.fixture.rs_ohm,
-                                      rb_plus + rb_minus)
+        rf, rs = ((self.fixture.diff_gain * DIFF_AMP_R_OHM, DIFF_AMP_R_OHM) if self.in_diff_amp(site)
+                  else (self.fixture.rf_ohm, self.fixture.rs_ohm))
+        sigma = gain * part_noise_rti(part, integration_s, rf, rs, rb_plus + rb_minus)
         if any(self.op.in_limit):
             sigma = math.hypot(sigma, gain * CC_MODE_NOISE_RTI)
         return sigma
+
+    def in_diff_amp(self, site: int) -> bool:
+        """True while `site` measures in the difference amplifier (by its kind, or relay 70k)."""
+        kind = self.fixture.kind_of(site)
+        return kind == "diff_amp" or (kind == "both" and SWITCH_OVER_BANK * 100 + site in self.relays)
+
+    def gain_of(self, site: int) -> float:
+        """From the part's input error to the node the DMM reads: the loop's 1 + Rf/Rs, or the
+        difference amplifier's noise gain 1 + G."""
+        return 1.0 + self.fixture.diff_gain if self.in_diff_amp(site) else self.fixture.gain
+
+    def diff_vcm(self, site: int) -> float:
+        """The part's common mode (against the supply mid-point) in the difference amplifier:
+        the rails' own, plus G / (1 + G) of the force source on the tied inputs."""
+        op = self.op
+        return -(op.vplus + op.vminus) / 2.0 + self.fixture.diff_cm_share * op.vout
 
     def dmm_shorted(self, dmm_index: int) -> bool:
         """True while relay 40k shorts the input of DMM k."""
@@ -382,12 +424,29 @@ class BenchModel:
         vcm = -(op.vplus + op.vminus) / 2.0
         if not MIN_SPAN_V <= span <= MAX_SPAN_V or abs(vcm) > span / 2.0 + INPUT_MARGIN_V:
             return SATURATED_NODE_V
+        if self.in_diff_amp(site):
+            return self._diff_target(site, part, span)
         loaded = (300 + site) in self.relays
         bench_error = (self.errors.site_offset_v[site - 1]
                        + self.errors.leakage_slope(site, self.fixture.rf_ohm, self.fixture.rs_ohm) * vcm)
         error = (vos_true(part, vcm, span, op.vout, loaded) + bias_offset_rti(part, *self.rb_in_circuit(site))
                  + bench_error)
         node = self.fixture.gain * error
+        return max(-SATURATED_NODE_V, min(SATURATED_NODE_V, node))
+
+    def _diff_target(self, site: int, part: PartTruth, span: float) -> float:
+        """The difference amplifier's output: the part's error times the noise gain 1 + G, plus
+        the resistor mismatch's common-mode term. The output sits near 0 V, so the part's
+        1/AOL term (microvolts over AOL) is left out."""
+        op = self.op
+        vcm = self.diff_vcm(site)
+        if abs(vcm) > span / 2.0 + INPUT_MARGIN_V:
+            return SATURATED_NODE_V
+        fixture = self.fixture
+        slope = fixture.diff_slope[site - 1] if fixture.diff_slope else 0.0
+        error = (vos_true(part, vcm, span) + bias_offset_rti(part, *self.rb_in_circuit(site))
+                 + self.errors.site_offset_v[site - 1])
+        node = (1.0 + fixture.diff_gain) * error + fixture.diff_gain * slope * op.vout
         return max(-SATURATED_NODE_V, min(SATURATED_NODE_V, node))
 
     def _changed(self, now: float, settle_from: float) -> None:
@@ -398,18 +457,23 @@ class BenchModel:
             powered = self.op.powered[k - 1]
             conditions = ((self.op.vplus, self.op.vminus, self.op.vout) if powered
                           else (0.0, 0.0, 0.0))
+            if powered and self.in_diff_amp(k):
+                # The tied inputs move the part's common mode as the rails would in the other
+                # direction; its output stays put.
+                shift = self.fixture.diff_cm_share * self.op.vout
+                conditions = (self.op.vplus - shift, self.op.vminus - shift, 0.0)
             part = self.seated[k - 1]
             tau = part.tau_fast_s if part else DEFAULT_TAU_S
             extra: tuple[tuple[float, float], ...] = ()
             bias = 0.0
             if part is not None and self.contact[k - 1]:
-                amp = self.fixture.gain * part.thermal_v_per_v * thermal_step_v(
+                amp = self.gain_of(k) * part.thermal_v_per_v * thermal_step_v(
                     self._conditions[k - 1], conditions)
                 extra = ((amp, part.tau_slow_s), (-amp, part.tau_fast_s))
                 bias = bias_offset_rti(part, *self.rb_in_circuit(k)) if powered else 0.0
             self._conditions[k - 1] = conditions
             target = self._target(k)
-            bias_step = self.fixture.gain * (self._bias_rti[k - 1] - bias)  # old - new, node volts
+            bias_step = self.gain_of(k) * (self._bias_rti[k - 1] - bias)  # old - new, node volts
             self._bias_rti[k - 1] = bias
             if self.ideal:
                 self.nodes[k - 1].jump(now, target)

@@ -21,6 +21,7 @@ PAT_OUTLIER_VOS_V = (100e-6, 140e-6)
 _DEFECT_EDGES = ((0.010, "open"), (0.015, "short"), (0.025, "outlier"), (0.030, "crossover"))
 IB_TYPICAL_A = 2.0e-12   # invented: a CMOS input's bias current at room temperature
 LEAKY_SHARE = 0.015      # invented: 1.5 % of parts have one input leaking 20-100 pA
+CMRR_CORNER_HZ = (100.0, 1000.0)   # invented: where each part's CMRR starts to roll off
 WIDTH_10_90_PER_SCALE = 2.0 * math.log(9.0)  # logistic: 10-90 % width = 2 ln 9 * scale
 
 
@@ -50,6 +51,7 @@ class PartTruth:
     ib_plus_a: float = 0.0      # input bias current into the + input (A, into the pin positive)
     ib_minus_a: float = 0.0     # input bias current into the - input
     leaky: bool = False         # an input with ESD-structure leakage far above the population
+    cmrr_corner_hz: float = math.inf  # single-pole roll-off of the common-mode rejection
     binned_hard_bin: int | None = None
     site: int | None = None
 
@@ -60,6 +62,16 @@ class PartTruth:
 
     def crossover_vcm(self, span_v: float) -> float:
         return span_v / 2.0 - self.crossover_below_vplus_v
+
+    def cm_slope(self, vcm: float, span_v: float) -> float:
+        """The signed DC common-mode slope dVos/dVcm at `vcm`: the two pairs' slopes blended
+        as the offset is (the derivative of the step's blend is left out: a transition
+        region is no place for a rejection figure)."""
+        centre = self.crossover_vcm(span_v)
+        scale = self.crossover_width_v / WIDTH_10_90_PER_SCALE
+        x = (vcm - centre) / scale
+        weight_high = 1.0 / (1.0 + math.exp(-x)) if x >= 0 else math.exp(x) / (1.0 + math.exp(x))
+        return (1.0 - weight_high) * self.cmrr_low_vv + weight_high * self.cmrr_high_vv
 
     def iq(self, span_v: float) -> float:
         """Quiescent current; rises 1 %/V of span above 10 V (invented)."""
@@ -98,6 +110,7 @@ def truth_row(part: PartTruth) -> dict[str, object]:
         "IB_MINUS_A": part.ib_minus_a,
         "IOS_A": part.ib_plus_a - part.ib_minus_a,
         "LEAKY": int(part.leaky),
+        "CMRR_CORNER_HZ": part.cmrr_corner_hz,
         "BINNED_HARD_BIN": "" if part.binned_hard_bin is None else part.binned_hard_bin,
         "SITE": "" if part.site is None else part.site,
     }
@@ -107,7 +120,7 @@ TRUTH_COLUMNS = (
     "PART_ID", "DEFECT", "RESEAT_FIXES", "VOS_LOW_V", "CM_STEP_V", "CMRR_LOW_VV", "CMRR_HIGH_VV",
     "CMRR_LOW_DB", "CMRR_HIGH_DB", "CROSSOVER_VCM_V", "CROSSOVER_WIDTH_V", "AOL_VV", "AOL_DB",
     "PSRR_VV", "PSRR_DB", "IQ_A", "NOISE_V_RTHZ", "FLICKER_V", "TAU_FAST_S", "TAU_SLOW_S",
-    "THERMAL_V_PER_V", "IB_PLUS_A", "IB_MINUS_A", "IOS_A", "LEAKY", "BINNED_HARD_BIN", "SITE",
+    "THERMAL_V_PER_V", "IB_PLUS_A", "IB_MINUS_A", "IOS_A", "LEAKY", "CMRR_CORNER_HZ", "BINNED_HARD_BIN", "SITE",
 )
 
 
@@ -144,6 +157,9 @@ def make_part(seed: int, index: int, defects: bool = True) -> PartTruth:
     leaky = bool(rng.random() < LEAKY_SHARE)
     leak = rng.uniform(20e-12, 100e-12)
     leak_on_plus = bool(rng.random() < 0.5)
+    # The corner where the common-mode rejection starts to fall (invented: log-uniform from
+    # CMRR_CORNER_HZ[0] to [1]), drawn last so every earlier figure of a seed stays as it was.
+    corner = 10.0 ** rng.uniform(math.log10(CMRR_CORNER_HZ[0]), math.log10(CMRR_CORNER_HZ[1]))
 
     defect = "none"
     if defects:
@@ -158,7 +174,8 @@ def make_part(seed: int, index: int, defects: bool = True) -> PartTruth:
         crossover_below_vplus_v=below_vplus, crossover_width_v=width, aol_vv=aol,
         psrr_vv=psrr, iq_a=iq, noise_v_rthz=noise, flicker_v=flicker,
         tau_fast_s=tau_fast, tau_slow_s=tau_slow, thermal_v_per_v=thermal,
-        short_ohm=math.inf, ib_plus_a=ib_plus, ib_minus_a=ib_minus, leaky=leaky)
+        short_ohm=math.inf, ib_plus_a=ib_plus, ib_minus_a=ib_minus, leaky=leaky,
+        cmrr_corner_hz=corner)
     if leaky:
         if leak_on_plus:
             part.ib_plus_a += leak

@@ -1,7 +1,7 @@
 """Simulated fixture relay matrix: site power (10k), scanner (20k), output load (30k), a short
 across the input of DMM k (40k, for the bench self-test's zero check), and the bias resistors
 of the + (50k) and - (60k) inputs (closing the channel opens the shunt across Rb, so Rb is in
-series with the input)."""
+series with the input), and the switch-over of a site to the difference amplifier (70k)."""
 
 from __future__ import annotations
 
@@ -11,7 +11,9 @@ from sim_instruments.scpi_errors import ScpiError
 from sim_instruments.scpi_params import Arguments, channel_list
 from sim_instruments.scpi_tree import CommandTree
 
-BANKS = (1, 2, 3, 4, 5, 6)  # 1xx power, 2xx scanner, 3xx load, 4xx short DMM k's input, 5xx / 6xx Rb in + / - input
+# 1xx power, 2xx scanner, 3xx load, 4xx short DMM k's input, 5xx / 6xx Rb in + / - input,
+# 7xx switch site k from the servo loop to the difference amplifier (a fixture of kind both)
+BANKS = (1, 2, 3, 4, 5, 6, 7)
 SCANNER_BANK = 2
 
 

@@ -383,6 +383,9 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         simulated = SimBench(settings)
     except ValueError as exc:          # e.g. --transport for a role this bench does not have
         raise Refused(f"simulated bench: {exc}") from None
+    fixture_truth = simulated.fixture_truth()
+    if fixture_truth is not None:      # the difference amplifier as drawn: the truth of its mismatch
+        extra["dry_run"]["fixture"] = fixture_truth
     with simulated as sim, tempfile.TemporaryDirectory() as temp:
         config = yaml.safe_load(sim.bench_config_text())
         if user_bench:
@@ -450,6 +453,10 @@ def _resumed_sim_settings(ctx: click.Context, resume: ResumeState, settings) -> 
     for key in _SIM_KEYS:
         setattr(settings, key, recorded[key])
     settings.pat_outlier_share = float(recorded.get("pat_outlier_share", 0.0))   # the same population
+    fixture = recorded.get("fixture")
+    if isinstance(fixture, dict):                                             # the same fixture
+        settings.fixture_kind = tuple(fixture["kinds"])
+        settings.diff_gain, settings.diff_tolerance = float(fixture["gain"]), float(fixture["tolerance"])
     settings.skip_parts = resume.presented_before
 
 
@@ -469,10 +476,14 @@ def _read_bench_overrides(path: Path, settings) -> dict:
     except ConfigError as exc:
         raise Refused(str(exc)) from None
     settings.sites = config.sites
-    settings.rf_ohm, settings.rs_ohm = config.rf_ohm, config.rs_ohm
+    if config.rf_ohm > 0:            # a bench without a servo loop keeps the simulator's own
+        settings.rf_ohm, settings.rs_ohm = config.rf_ohm, config.rs_ohm
     if config.bias is not None:
         settings.rb_ohm = config.bias.rb_ohm
     settings.dmm_per_site = config.dmm_per_site
+    settings.fixture_kind = config.fixture_kinds or "servo_loop"
+    if config.diff_amp is not None:
+        settings.diff_gain, settings.diff_tolerance = config.diff_amp.gain, config.diff_amp.tolerance
     return yaml.safe_load(path.read_text(encoding="utf-8"))
 
 

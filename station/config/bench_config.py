@@ -6,6 +6,7 @@ floats in SI units. Every problem is one line: ``file:line: key: what is wrong (
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Annotated, Any
@@ -101,9 +102,29 @@ class BiasSection(_Strict):
     minus: list[int] = Field(min_length=1)
 
 
+class CharacterisedSection(_Strict):
+    """A characterisation run with a reference part: the fixture's own common-mode slope per
+    site (input-referred, signed) and how well that run knows it."""
+
+    slope: list[Annotated[float, quantity("V/V", ge=-0.1, le=0.1, why="a fixture's common-mode slope")]] = \
+        Field(min_length=1)
+    residual: Annotated[float, quantity("dB", gt=0, le=300, why="what the characterisation leaves")]
+
+
+class DiffAmpSection(_Strict):
+    """The difference-amplifier fixture: four resistors around the part, inputs tied."""
+
+    gain: Annotated[float, plain_number(gt=0, le=1000, why="a difference amplifier's gain")]
+    tolerance: Annotated[float, quantity("V/V", gt=0, le=0.05, why="a resistor tolerance (e.g. 0.01 %)")]
+    characterised: CharacterisedSection | None = None
+    relays: list[int] | None = None   # kind both: per site, the channel that switches it over
+
+
 class FixtureSection(_Strict):
-    rf: LoopOhms
-    rs: LoopOhms
+    kind: str | list[str] = "servo_loop"
+    rf: LoopOhms | None = None
+    rs: LoopOhms | None = None
+    diff_amp: DiffAmpSection | None = None
     sites: int = Field(strict=True)
     line_frequency: Annotated[float, quantity("Hz", gt=0, le=1000)]
     dmm_per_site: bool | None = Field(None, strict=True)
@@ -176,6 +197,58 @@ class BiasFixture:
 
 
 @dataclass(frozen=True)
+class DiffAmpFixture:
+    """A difference amplifier of gain G around the part, both inputs tied to the force source.
+
+    The part sees the common mode Vin x G / (1 + G) (Vin/2 at G = 1) and its offset error
+    reaches the output with the noise gain 1 + G. The resistors' mismatch adds a common-mode
+    slope of its own, input-referred at most 4 t / (1 + G) (the fixture's CMRR (1 + G) / (4 t),
+    from memory); a characterisation run gives that slope per site, known to `residual_db`.
+    """
+
+    gain: float
+    tolerance: float
+    characterised: tuple[float, ...] | None = None   # per site (index 0 = site 1), V/V signed
+    residual_db: float | None = None
+    relays: tuple[int, ...] = ()                      # kind both: channel per site
+    line: int | None = None                          # line of fixture.diff_amp
+
+    @property
+    def cm_share(self) -> float:
+        """The part's common mode per volt at the tied inputs: G / (1 + G)."""
+        return self.gain / (1.0 + self.gain)
+
+    @property
+    def noise_gain(self) -> float:
+        return 1.0 + self.gain
+
+    @property
+    def worst_slope(self) -> float:
+        """The largest input-referred common-mode slope the resistor mismatch can give: 4 t / (1 + G)."""
+        return 4.0 * self.tolerance / (1.0 + self.gain)
+
+    @property
+    def resolution_slope(self) -> float:
+        """What remains of the fixture's own term after the station has dealt with it: the
+        characterisation's residual, or (uncharacterised) the worst case of the mismatch."""
+        if self.characterised is not None and self.residual_db is not None:
+            return 10.0 ** (-self.residual_db / 20.0)
+        return self.worst_slope
+
+    @property
+    def resolution_db(self) -> float:
+        return -20.0 * math.log10(self.resolution_slope)
+
+    def fixture_slope(self, site: int) -> float:
+        """The characterised slope to subtract at `site` (0 when uncharacterised)."""
+        return self.characterised[site - 1] if self.characterised is not None else 0.0
+
+
+FIXTURE_KINDS = ("servo_loop", "diff_amp", "both")
+SWITCH_OVER_BANK = 7   # relays 70k switch site k from the servo loop to the difference amplifier
+
+
+@dataclass(frozen=True)
 class BenchConfig:
     station: str
     visa_library: str
@@ -192,11 +265,30 @@ class BenchConfig:
     dmm_short_relays: bool = False
     handshake: HandshakeTiming | None = None
     bias: BiasFixture | None = None    # no bias resistors: the bias_current test cannot run
+    fixture_kinds: tuple[str, ...] = ()  # per site: servo_loop, diff_amp or both (empty: servo_loop)
+    diff_amp: DiffAmpFixture | None = None
+    fixture_line: int | None = None      # line of fixture.kind, for errors
 
     @property
     def loop_gain(self) -> float:
-        """Servo-loop gain from the DUT offset to the measurement node: 1 + Rf/Rs."""
+        """Gain from the DUT offset to the measurement node: 1 + Rf/Rs in the servo loop, or
+        the difference amplifier's noise gain 1 + G on a bench without a servo loop."""
+        if not self.has_fixture("servo_loop") and self.diff_amp is not None:
+            return self.diff_amp.noise_gain
         return loop_gain(self.rf_ohm, self.rs_ohm)
+
+    def site_fixtures(self, site: int) -> set[str]:
+        """The fixtures a site can measure in."""
+        kind = self.fixture_kinds[site - 1] if self.fixture_kinds else "servo_loop"
+        return {"servo_loop", "diff_amp"} if kind == "both" else {kind}
+
+    def has_fixture(self, fixture: str) -> bool:
+        """True when every site can measure in `fixture`."""
+        return all(fixture in self.site_fixtures(site) for site in range(1, self.sites + 1))
+
+    @property
+    def switch_over_channels(self) -> tuple[int, ...]:
+        return self.diff_amp.relays if self.diff_amp is not None else ()
 
     @property
     def dmm_roles(self) -> list[str]:
@@ -240,16 +332,74 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
     if model.instruments.handler is not None:
         add("handler", model.instruments.handler)
     bias = _check_bias(doc, fixture)
+    kinds, diff_amp = _check_fixture_kinds(doc, fixture)
     station = model.station or (source.stem if source is not None else "bench")
     res = fixture.resolution
     resolution = (FixtureResolution(res.dmm_noise, res.nplc, res.cmrr_limit, doc.line_of(["fixture", "resolution"]))
                   if res is not None else None)
     return BenchConfig(station=station, visa_library=model.visa_library, instruments=instruments,
-                       rf_ohm=fixture.rf, rs_ohm=fixture.rs, sites=fixture.sites,
+                       rf_ohm=fixture.rf or 0.0, rs_ohm=fixture.rs or 1.0, sites=fixture.sites,
                        line_hz=fixture.line_frequency, dmm_per_site=dmm_per_site,
                        max_rail_v=safety.max_rail, compliance_a=safety.current_compliance,
                        source=source, resolution=resolution, dmm_short_relays=fixture.dmm_short_relays,
-                       handshake=_handshake(doc, model), bias=bias)
+                       handshake=_handshake(doc, model), bias=bias, fixture_kinds=kinds,
+                       diff_amp=diff_amp, fixture_line=doc.line_of(["fixture", "kind"]))
+
+
+_KIND_HINT = "write servo_loop, diff_amp or both (one for every site, or a list, one per site)"
+
+
+def _check_fixture_kinds(doc: YamlDocument, fixture: FixtureSection) -> tuple[tuple[str, ...], DiffAmpFixture | None]:
+    """The fixture kind of each site, and the difference amplifier where one is named."""
+    sites = fixture.sites
+    listed = isinstance(fixture.kind, list)
+    kinds = list(fixture.kind) if isinstance(fixture.kind, list) else [fixture.kind] * sites
+    if len(kinds) != sites:
+        raise doc.error(["fixture", "kind"], f"{len(kinds)} entries for a {sites}-site fixture",
+                        f"give one per site ({sites}), or one for all")
+    for i, kind in enumerate(kinds):
+        if kind not in FIXTURE_KINDS:
+            raise doc.error(["fixture", "kind", *([i] if listed else [])], f"unknown fixture kind {kind!r}", _KIND_HINT)
+    servo = any(k in ("servo_loop", "both") for k in kinds)
+    diff = any(k in ("diff_amp", "both") for k in kinds)
+    if servo and (fixture.rf is None or fixture.rs is None):
+        raise doc.error(["fixture", "rf" if fixture.rf is None else "rs"], "a servo-loop fixture needs rf and rs",
+                        "give the loop resistors, e.g. rf: 100 kOhm, rs: 100 Ohm")
+    section = fixture.diff_amp
+    if not diff:
+        if section is not None:
+            raise doc.error(["fixture", "diff_amp"], "no site has a difference amplifier (fixture.kind)",
+                            "set fixture.kind to diff_amp or both, or remove fixture.diff_amp")
+        return tuple(kinds), None
+    if section is None:
+        raise doc.error(["fixture", "kind"], "a difference-amplifier fixture needs fixture.diff_amp",
+                        "add diff_amp: {gain: 1, tolerance: 0.01 %}")
+    relays: tuple[int, ...] = ()
+    if "both" in kinds:
+        if section.relays is None or len(section.relays) != sites:
+            raise doc.error(["fixture", "diff_amp", *(["relays"] if section.relays is not None else [])],
+                            "a site switched between the two fixtures needs its switch-over relay",
+                            f"add relays: one channel 7xx per site ({', '.join(str(700 + k) for k in range(1, sites + 1))})")
+        for i, channel in enumerate(section.relays):
+            if channel // 100 != SWITCH_OVER_BANK or not 1 <= channel % 100 <= 99 or channel in section.relays[:i]:
+                raise doc.error(["fixture", "diff_amp", "relays", i],
+                                f"channel {channel} is not a free switch-over relay (7xx, once each; "
+                                "1xx-6xx are power, scanner, load, DMM shorts and bias shunts)",
+                                "see docs/fixtures.md: 701-704 on the demo fixture")
+        relays = tuple(section.relays)
+    elif section.relays is not None:
+        raise doc.error(["fixture", "diff_amp", "relays"], "relays switch a site of kind both; no site is",
+                        "remove relays, or set fixture.kind: both")
+    characterised, residual = None, None
+    if section.characterised is not None:
+        if len(section.characterised.slope) != sites:
+            raise doc.error(["fixture", "diff_amp", "characterised", "slope"],
+                            f"{len(section.characterised.slope)} entries for a {sites}-site fixture",
+                            f"give the characterised slope of each site ({sites})")
+        characterised, residual = tuple(section.characterised.slope), section.characterised.residual
+    amp = DiffAmpFixture(section.gain, section.tolerance, characterised, residual, relays,
+                         doc.line_of(["fixture", "diff_amp"]))
+    return tuple(kinds), amp
 
 
 def _handshake(doc: YamlDocument, model: BenchFile) -> HandshakeTiming | None:
@@ -289,9 +439,10 @@ def _check_bias(doc: YamlDocument, fixture: FixtureSection) -> BiasFixture | Non
     channels = [*section.plus, *section.minus]
     for i, channel in enumerate(channels):
         key = "plus" if i < sites else "minus"
-        if not SWITCH_CHANNELS[0] <= channel <= SWITCH_CHANNELS[1] or channel // 100 in (1, 2, 3, 4):
+        if not SWITCH_CHANNELS[0] <= channel <= SWITCH_CHANNELS[1] or channel // 100 in (1, 2, 3, 4, SWITCH_OVER_BANK):
             raise doc.error(["fixture", "bias", key, i % sites],
-                            f"channel {channel} is not a bias relay (101-499 are power, scanner, load and DMM shorts)",
+                            f"channel {channel} is not a bias relay (101-499 are power, scanner, load and DMM shorts, "
+                            "7xx the fixture switch-over)",
                             "see docs/bench-commands.md: 501-504 and 601-604 on the demo fixture")
         if channel in channels[:i]:     # named at its second use
             raise doc.error(["fixture", "bias", key, i % sites], f"channel {channel} is listed twice",
@@ -353,5 +504,5 @@ def _check_dmm_count(doc: YamlDocument, model: BenchFile) -> bool:
     return wanted
 
 
-__all__ = ["BenchConfig", "BiasFixture", "ConfigError", "InstrumentConfig", "load_bench_config",
+__all__ = ["BenchConfig", "BiasFixture", "DiffAmpFixture", "ConfigError", "InstrumentConfig", "load_bench_config",
            "parse_bench_config"]

@@ -33,6 +33,8 @@ PARAMETERS: dict[str, ParameterInfo] = {p.name: p for p in [
     ParameterInfo("ib_minus", "A", None, True, "input bias current of the - input (into the pin positive)"),
     ParameterInfo("ib", "A", None, True, "input bias current, mean of the two inputs"),
     ParameterInfo("ios", "A", None, True, "input offset current Ib+ - Ib-"),
+    ParameterInfo("cmrr_da", "dB", "slope", True,
+                  "common-mode rejection of a region in the difference-amplifier fixture (its own term subtracted)"),
     ParameterInfo("app_err", "V", "application", True, "application error budget, direct sum of its terms (RTI)"),
     ParameterInfo("app_err_rss", "V", "application", True, "application error budget, root sum of squares (RTI)"),
     # Informational rows: logged for offline analysis, never limited.
@@ -43,6 +45,8 @@ PARAMETERS: dict[str, ParameterInfo] = {p.name: p for p in [
     ParameterInfo("ios_both", "A", None, False, "Ios from the reading with both Rb in (consistency check)"),
     ParameterInfo("vos_rb", "V", None, False, "raw loop offset with Rb in series with none, one or both inputs"),
     ParameterInfo("cmrr_slope", "V/V", "slope", False, "signed least-squares slope dVos/dVcm of a region"),
+    ParameterInfo("cmrr_da_slope", "V/V", "slope", False, "signed slope dVos/dVcm of a region, difference amplifier"),
+    ParameterInfo("vos_da", "V", "point", False, "raw Vos at one drive level of the difference amplifier"),
     ParameterInfo("aol_slope", "V/V", None, False, "signed slope dVos/dVout"),
     ParameterInfo("psrr_slope", "V/V", None, False, "signed slope dVos/dVs"),
     ParameterInfo("vos_cm", "V", "point", False, "raw Vos at one common-mode point"),

@@ -66,6 +66,21 @@ def check_bins_fit_handler(table: LimitTable, path: Path) -> None:
                             f"renumber the hard bins to {HANDLER_MIN_BIN}-{HANDLER_MAX_BIN}")
 
 
+def check_fixtures(sequence: Sequence, bench: BenchConfig) -> None:
+    """Refuse a test whose fixture (its kind's) some site of the bench lacks."""
+    for step in sequence.tests:
+        needed = kind_of(step).fixture
+        if needed is None or bench.has_fixture(needed):
+            continue
+        lacking = [site for site in range(1, bench.sites + 1) if needed not in bench.site_fixtures(site)]
+        bench_file = f"{bench.source}:{bench.fixture_line}" if bench.source and bench.fixture_line else (
+            str(bench.source) if bench.source else "the bench config")
+        raise ConfigError(sequence.source, f"the {step.kind} test needs the {needed} fixture, which site "
+                          f"{', '.join(map(str, lacking))} of the bench lacks (fixture.kind, {bench_file})",
+                          hint=f"remove the test, or use a bench whose fixture.kind is {needed} or both",
+                          line=step.line, key=f"tests[{step.index - 1}]")
+
+
 def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> ScreenPlan:
     """Load and cross-check; any problem is a ConfigError naming the file and what to fix."""
     bench = load_bench_config(bench_path)
@@ -75,6 +90,7 @@ def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> Scre
         raise ConfigError(sequence.source, f"sequence is for product {sequence.product!r} but the "
                           f"limit table {table.source} is for {table.product!r}",
                           hint="pick the limit table of the same product")
+    check_fixtures(sequence, bench)
     check_bench_safety(sequence, bench.max_rail_v, bench.compliance_a)
     if bench.has_handler:
         check_bins_fit_handler(table, Path(limits_path))

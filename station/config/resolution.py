@@ -12,6 +12,13 @@ A rejection limit "L dB" is the slope 10^(-L/20). It is refused when that slope 
 RESOLVE_SIGMAS times the noise of its slope (the fixture could not tell a conforming part
 from a failing one), or, for CMRR, when L is beyond the fixture's own CMRR. Our rule: 3 sigma
 (common practice, no source).
+
+A difference-amplifier fixture (bench config `fixture.diff_amp`) puts its resistors' mismatch
+in series with the part: for gain G and tolerance t its own CMRR is at worst (1 + G) / (4 t)
+(from memory, a standard application-note result; 74 dB at G = 1 and 0.01 %). A CMRR limit
+of the difference amplifier beyond that (or beyond the characterisation's residual, where the
+fixture's slope was measured and is subtracted) is refused, whether or not `fixture.resolution`
+is given.
 """
 
 from __future__ import annotations
@@ -54,6 +61,16 @@ def slope_resolution(bench: BenchConfig, sequence: Sequence, table: LimitTable) 
                     out[("cmrr", region.name)] = RESOLVE_SIGMAS * slope_noise(sigma, xs)
             if len(vcms) >= 2:
                 out[("cmrr", FULL_RANGE)] = RESOLVE_SIGMAS * slope_noise(sigma, [min(vcms), max(vcms)])
+        elif step.kind == "diff_cmrr" and bench.diff_amp is not None:
+            amp = bench.diff_amp
+            sigma = res.reading_noise_rti(amp.noise_gain, step.nplc) / math.sqrt(step.average)
+            vcms = step.point_vcms(sequence.span_v)
+            for region in table.regions:
+                xs = [v for v in vcms if region_of(v, table.regions, sequence.span_v) == region.name]
+                if region.kind == "slope" and len(set(xs)) >= 2:
+                    out[("cmrr_da", region.name)] = RESOLVE_SIGMAS * slope_noise(sigma, xs)
+            if len(set(vcms)) >= 2:
+                out[("cmrr_da", FULL_RANGE)] = RESOLVE_SIGMAS * slope_noise(sigma, [min(vcms), max(vcms)])
         elif step.kind == "supply_rejection" and len(step.spans_v) >= 2:
             out[("psrr", None)] = RESOLVE_SIGMAS * slope_noise(sigma, list(step.spans_v))
         elif step.kind == "gain" and len(step.levels_v) >= 2:
@@ -61,15 +78,44 @@ def slope_resolution(bench: BenchConfig, sequence: Sequence, table: LimitTable) 
     return out
 
 
+# The difference amplifier's rejection figures, and the kinds that measure them.
+DIFF_AMP_PARAMS = {"cmrr_da": "diff_cmrr"}
+
+
+def diff_amp_problems(bench: BenchConfig, sequence: Sequence, table: LimitTable) -> list[ConfigError]:
+    """One ConfigError per CMRR limit of the difference amplifier beyond the fixture's own."""
+    amp = bench.diff_amp
+    kinds = {step.kind for step in sequence.tests}
+    if amp is None or not kinds & set(DIFF_AMP_PARAMS.values()):
+        return []
+    doc = load_yaml_file(table.source)
+    problems: list[ConfigError] = []
+    where = f"{bench.source}:{amp.line}" if bench.source is not None else "the bench config"
+    how = ("the characterisation's residual" if amp.characterised is not None
+           else f"(1 + G) / (4 t) at G = {amp.gain:g}, t = {amp.tolerance * 100:g} %")
+    for i, grade in enumerate(table.grades):
+        for j, limit in enumerate(grade.limits):
+            if DIFF_AMP_PARAMS.get(limit.param) not in kinds or limit.low is None:
+                continue
+            if limit.low > amp.resolution_db:
+                what = f"grade {grade.name} {limit.param}" + (f" {limit.region}" if limit.region else "")
+                problems.append(doc.error(["grades", i, "limits", j, "low"],
+                                          f"{what} limit {limit.low:g} dB is beyond what the difference amplifier "
+                                          f"resolves ({amp.resolution_db:.1f} dB, {how}; {where})",
+                                          f"lower the limit to {math.floor(amp.resolution_db * 10) / 10:g} dB or "
+                                          "less, or characterise the fixture, or use tighter resistors or more gain"))
+    return problems
+
+
 def resolution_problems(bench: BenchConfig, sequence: Sequence, table: LimitTable) -> list[ConfigError]:
     """One ConfigError (limits file:line) per limit the fixture cannot resolve; [] when the
     bench config states no resolution (nothing to check against)."""
+    problems = diff_amp_problems(bench, sequence, table)
     res = bench.resolution
     if res is None:
-        return []
+        return problems
     floors = slope_resolution(bench, sequence, table)
     doc = load_yaml_file(table.source)
-    problems: list[ConfigError] = []
     for i, grade in enumerate(table.grades):
         for j, limit in enumerate(grade.limits):
             if limit.units != "dB" or limit.low is None:

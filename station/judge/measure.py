@@ -167,6 +167,28 @@ def cmrr_figures(vcm: Sequence[float], vos: Sequence[float], regions: Sequence[R
     return figures
 
 
+def diff_cmrr_figures(vcm: Sequence[float], vos: Sequence[float], regions: Sequence[Region],
+                      span_v: float) -> list[Figure]:
+    """Figures of a difference-amplifier sweep: per slope region holding two distinct points
+    cmrr_da_slope + cmrr_da, then the full-range end-point pair (no figure of a step region:
+    its offset step is the servo loop's to measure)."""
+    if len(vcm) != len(vos):
+        raise MeasurementError(f"{len(vcm)} common-mode points but {len(vos)} offset readings")
+    figures: list[Figure] = []
+    for name in diff_cmrr_regions(vcm, regions, span_v):
+        pairs = [(x, y) for x, y in zip(vcm, vos, strict=True) if region_of(x, regions, span_v) == name]
+        slope = least_squares_slope([p[0] for p in pairs], [p[1] for p in pairs])
+        figures += [Figure("cmrr_da_slope", name, slope, "V/V"), Figure("cmrr_da", name, rejection_db(slope), "dB")]
+    full = endpoint_slope(vcm, vos)
+    return [*figures, Figure("cmrr_da_slope", FULL_RANGE, full, "V/V"), Figure("cmrr_da", FULL_RANGE, rejection_db(full), "dB")]
+
+
+def diff_cmrr_regions(vcm: Sequence[float], regions: Sequence[Region], span_v: float) -> list[str]:
+    """The slope regions holding at least two distinct points of `vcm`, low to high."""
+    return [r.name for r in regions if r.kind == "slope"
+            and len({x for x in vcm if region_of(x, regions, span_v) == r.name}) >= 2]
+
+
 def aol_figures(vout_levels: Sequence[float], vos: Sequence[float]) -> list[Figure]:
     """Open-loop gain from Vos at several commanded outputs: s = dVos/dVout, AOL = 1/|s|."""
     slope = least_squares_slope(vout_levels, vos)

@@ -101,6 +101,16 @@ class StepScreen(Protocol):
         `rb_in` is the resistance now in series with each site's inputs (Ohm)."""
         ...
 
+    @property
+    def bench_config(self) -> BenchConfig:
+        """The bench config (its fixture constants)."""
+        ...
+
+    def use_fixture(self, sites: list[int], fixture: str) -> None:
+        """Measure `sites` in `fixture` (servo_loop or diff_amp): the switch-over relays of a
+        fixture of both kinds; nothing where a site has one fixture only."""
+        ...
+
 
 class TestKind(ABC):
     """One kind of test: `name` is what a sequence writes under `kind:`."""
@@ -111,6 +121,8 @@ class TestKind(ABC):
     title: ClassVar[str]                   # the test's name when the sequence gives none
     checks_contact: ClassVar[bool] = False  # runs on every seated part and decides its contact
     spec: ClassVar[type[StepSpec]] = StepSpec  # the keys of its entry in a sequence file
+    # The fixture the kind measures in (bench config fixture.kind); None: any fixture.
+    fixture: ClassVar[str | None] = "servo_loop"
 
     def step_fields(self, spec: Any) -> dict[str, Any]:
         """The kind's own fields of the TestStep record, from its validated entry (`spec`)."""

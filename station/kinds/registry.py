@@ -14,6 +14,7 @@ from station.kinds.bias_current import BiasCurrent
 from station.kinds.budget import ErrorBudget
 from station.kinds.cm_sweep import CommonModeSweep
 from station.kinds.contact import ContactCheck
+from station.kinds.diff_cmrr import DiffAmpCmrr
 from station.kinds.gain import OpenLoopGain
 from station.kinds.offset import OffsetAtNominal
 from station.kinds.supply_current import SupplyCurrent
@@ -30,6 +31,7 @@ KINDS: dict[str, TestKind] = {kind.name: kind for kind in (
     SupplyRejection(),
     SupplyCurrent(),
     BiasCurrent(),
+    DiffAmpCmrr(),
     ErrorBudget(),
 )}
 

@@ -15,6 +15,7 @@ if TYPE_CHECKING:
 
 class SupplyCurrent(TestKind):
     name = "supply_current"
+    fixture = None   # powers the part and reads the supply, in any fixture
     title = "Supply current"
 
     def lay_out(self, step: TestStep, rows: StepRows, context: KindContext) -> None:

@@ -147,7 +147,8 @@ def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
                               line_hz=config.line_hz, sites=config.sites,
                               dmm_short_relays=len(config.dmm_roles) if config.dmm_short_relays else 0,
                               handshake=config.handshake,
-                              bias_channels=config.bias.all_channels if config.bias else ())
+                              bias_channels=config.bias.all_channels if config.bias else (),
+                              switch_over_channels=config.switch_over_channels)
     links: dict[str, ScpiLink] = {}
     try:
         for role, instrument in config.instruments.items():

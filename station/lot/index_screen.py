@@ -17,6 +17,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from drivers.errors import InstrumentError
+from station.config.bench_config import BenchConfig
 from station.config.limit_tables import LimitTable
 from station.config.plan import ScreenPlan
 from station.config.rail_points import rails_for
@@ -66,6 +67,8 @@ class IndexScreen:
         self._bias: set[int] = set()   # bias relays closed (Rb in series); None of them at rest
         self._bias_unsure = False      # after a fault: the bias relays may be in any state
         self._bias_moved_at = 0.0      # reader clock when the bias relays last moved (acknowledged)
+        self._diff_sites: set[int] = set()  # sites switched to the difference amplifier
+        self._diff_unsure = False      # after a fault: the switch-over relays may be in any state
 
     # --- what a kind sees (StepScreen) ---
     @property
@@ -119,6 +122,19 @@ class IndexScreen:
                          rb_in: dict[int, float]) -> dict[int, float]:
         return self.reader.read_after_relay(sites, step, before, rb_in, self._bias_moved_at)
 
+    @property
+    def bench_config(self) -> BenchConfig:
+        return self.bench.config
+
+    def use_fixture(self, sites: list[int], fixture: str) -> None:
+        config = self.bench.config
+        if not config.switch_over_channels:
+            return
+        wanted = set(sites) if fixture == "diff_amp" else set()
+        if wanted != self._diff_sites or self._diff_unsure:
+            self.bench.switch.switch_to_diff_amp(wanted)
+            self._diff_sites, self._diff_unsure = wanted, False
+
     def measure_iq(self, site: int, wait_s: float) -> float:
         self.bench.switch.power_sites({site})
         self.sleep(wait_s)
@@ -143,6 +159,7 @@ class IndexScreen:
         self._rails = self._force = None
         self._read_back = True
         self._bias_unsure = self.bench.config.bias is not None
+        self._diff_unsure = bool(self.bench.config.switch_over_channels)
         self.reader.forget_config()
 
     # --- one index ---
@@ -163,6 +180,8 @@ class IndexScreen:
                 self.bench.switch.power_sites(set())  # parts are never handled powered
                 if self._bias or self._bias_unsure:   # the next index starts with Rb shunted
                     self.set_bias([], False, False)
+                if self._diff_sites or self._diff_unsure:
+                    self.use_fixture([], "servo_loop")     # ... and every site in the servo loop
             except InstrumentError:
                 pass
         return [self._grade(w) for w in work]
@@ -177,6 +196,8 @@ class IndexScreen:
         self.set_force(0.0)
         if self._bias_unsure:   # no reading is taken with an Rb left in series after a fault
             self.set_bias([], False, False)
+        if self._diff_unsure:   # ... nor with a site left on the wrong fixture
+            self.use_fixture([], "servo_loop")
         for step in seq.tests:
             kind = kind_of(step)
             parts = work if kind.checks_contact else [w for w in work if w.live]

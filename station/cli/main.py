@@ -114,7 +114,8 @@ def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] 
 def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None,
                   stops: StopRequests) -> int:
     from station.cli.lot_console import LotProgress, bin_summary, lot_line
-    from station.cli.screen_commands import ask_pause, pat_preset
+    from station.cli.pause_prompt import ask_pause
+    from station.cli.screen_commands import pat_preset
     from station.cli.view_commands import live_view
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
@@ -154,7 +155,8 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
                 on_part = _both(on_part, sink.part_logged)
             runner = LotRunner(plan, bench, writer, settings, on_part=on_part,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
-                               way_out=page.way_out(stops.way_out), decide=lambda alarm: ask_pause(alarm, live))
+                               way_out=page.way_out(stops.way_out),
+                               decide=lambda alarm, pause: ask_pause(alarm, pause, live, page.desk))
             tally = runner.run()
         with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:

@@ -71,21 +71,6 @@ def fixture_fault_options(texts: tuple[str, ...]) -> tuple:
     return tuple(faults)
 
 
-def ask_pause(alarm: Any, live: list) -> str:
-    """The operator's answer at a lot-control pause (the bench is in its safe state meanwhile)."""
-    choices = ["continue", "skip", "stop"] if alarm.site is not None else ["continue", "stop"]
-    site = f" (skip: site {alarm.site} is not tested any more)" if alarm.site is not None else ""
-    text = f"LOT PAUSED ({alarm.rule}): {alarm.message}\nbench in safe state; {', '.join(choices)}{site}?"
-
-    def prompt() -> str:
-        try:
-            return str(click.prompt(text, type=click.Choice(choices), default="stop"))
-        except click.Abort:          # input closed: the safe answer
-            return "stop"
-
-    return str(live[0].ask(prompt)) if live else prompt()
-
-
 def pat_preset(table: Any, folder: Path | None) -> tuple[list, str] | None:
     """Dynamic PAT limits from an earlier lot (`--pat-baseline`), or None for the lot's own baseline."""
     if folder is None:

@@ -2,8 +2,9 @@
 `station view DATALOG`, which serves the same page from a datalog folder alone.
 
 Loopback unless a host is given; on any other address a token is made for this process and
-printed here, and the page refuses every request without it. The token is never written to
-a file.
+printed here, and the page refuses every request without it. A lot's page also gets a
+bench-control token, printed here in a second address: only a page opened from that address
+can answer a lot-control pause. No token is ever written to a file.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ from station.errors import Refused
 from station.view.address import ViewAddress, parse_address
 
 if TYPE_CHECKING:               # the web stack and pandas load only when a page is served
+    from station.screen.pause_desk import PauseDesk
     from station.view.hub import SnapshotHub
     from station.view.server import PageServer
     from station.view.snapshot import Phase
@@ -46,10 +48,12 @@ view_option = click.option(
 
 @dataclass
 class LiveView:
-    """What the lot loop tells the page: a part was logged (poke), the way out began (phase)."""
+    """What the lot loop tells the page: a part was logged (poke), the way out began (phase);
+    and where the page's answer to a lot-control pause arrives (desk)."""
 
     hub: SnapshotHub | None = None
     phase: Phase | None = None
+    desk: PauseDesk | None = None
 
     def poke(self, *_: Any) -> None:
         if self.hub is not None:
@@ -72,17 +76,19 @@ def live_view(address: ViewAddress | None, folder: Path, expected_parts: int | N
     if address is None:
         yield LiveView()
         return
+    from station.screen.pause_desk import PauseDesk
     from station.view.hub import SnapshotHub
     from station.view.server import PageServer
     from station.view.snapshot import LotSnapshots, Phase
 
     phase = Phase()
+    desk = PauseDesk()
     hub = SnapshotHub(LotSnapshots(folder, expected_parts, phase), on_error=echo)
-    server = PageServer(hub, address)
+    server = PageServer(hub, address, desk=desk)
     server.start()
     _tell_address(server, echo)
     try:
-        yield LiveView(hub, phase)
+        yield LiveView(hub, phase, desk)
     finally:
         hub.poke()
         threading.Event().wait(SETTLE_S)
@@ -94,6 +100,9 @@ def _tell_address(server: PageServer, echo: Callable[[str], None]) -> None:
     if server.token:
         echo("live page: not loopback, so every request needs the token above (keep it to the people "
              "who may watch this lot; it ends with this process)")
+    if server.control_token:
+        echo(f"live page with bench control (answers a lot-control pause): {server.control_url}")
+        echo("live page: keep that address to the operator; the plain address above only watches")
 
 
 @click.command("view")

@@ -38,6 +38,15 @@ class AlarmRecord(_Open):
     time: str
 
 
+class PauseRecord(_Open):
+    """The open lot-control pause (station/screen/lot_guard.py); the live page answers it."""
+
+    id: str
+    rule: str
+    site: int | None
+    choices: list[str]
+
+
 class LotHeaderFields(_Open):
     lot_id: str | None = None
     product: str | None = None
@@ -57,6 +66,7 @@ class LotHeaderFields(_Open):
     instruments: dict[str, str] | None = None
     alarms: list[AlarmRecord] | None = None
     paused: bool | None = None
+    pause: PauseRecord | None = None
 
 
 def header_problem(header: dict[str, Any]) -> tuple[str, str] | None:

@@ -175,8 +175,9 @@ class DatalogWriter:
             now = time.time()
             self.header["resumed"] = [*self.header.get("resumed", []), iso_utc(now)]
             self.header["complete"] = False
-            for key in ("end_t", "end_time", "stopped_because", "safe_state"):
+            for key in ("end_t", "end_time", "stopped_because", "safe_state", "pause"):
                 self.header.pop(key, None)
+            self.header["paused"] = False      # a lot killed at a pause: nobody waits for that answer
             self.write_header()
             self._open_for_append()
         except OSError as exc:

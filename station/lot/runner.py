@@ -31,8 +31,7 @@ from station.lot.index_screen import IndexScreen, PartOutcome
 from station.lot.site_readings import SiteReader
 from station.lot.stop_signals import LotInterrupted, signals_deferred, signals_held
 from station.screen.dynamic_pat import LotPat
-from station.screen.lot_guard import LotGuard, no_operator
-from station.screen.lot_rules import Alarm
+from station.screen.lot_guard import Decide, LotGuard, no_operator
 
 __all__ = ["LotInterrupted", "LotRunner", "LotSettings", "LotStopped", "LotTally"]
 
@@ -104,7 +103,7 @@ class LotRunner:
                  sleep: Callable[[float], None] = time.sleep, resume: ResumeState | None = None,
                  tell: Callable[[str], None] = lambda text: None,
                  way_out: Callable[[], None] = lambda: None,
-                 decide: Callable[[Alarm], str] = no_operator) -> None:
+                 decide: Decide = no_operator) -> None:
         self.plan = plan
         self.way_out = way_out     # told first thing on the way out: later signals stop nothing
         self.bench = bench
@@ -130,7 +129,9 @@ class LotRunner:
         self.guard = LotGuard(plan.sequence.lot_control, plan.bench.sites, write=self._write_header_fields,
                               tell=tell, decide=decide, make_safe=self._make_safe,
                               power_up=lambda: self._tolerant(self.screen.power_up),
-                              earlier=list(resume.header.get("alarms", [])) if resume is not None else None)
+                              earlier=list(resume.header.get("alarms", [])) if resume is not None else None,
+                              earlier_decisions=list(resume.header.get("operator_decisions", []))
+                              if resume is not None else None)
         preset = settings.pat_preset
         self.pat = LotPat(plan.table, preset[0] if preset else None, preset[1] if preset else "")
         if resume is not None:

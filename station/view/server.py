@@ -1,18 +1,26 @@
 """The live page's web server: Starlette served by uvicorn on a thread of its own.
 
-Read-only: only GET and HEAD are answered, and nothing on the page reaches the bench. It binds
-loopback unless a host is given; on any other address every request needs the token printed
-at the terminal (``?token=`` once, then a same-site cookie; or ``Authorization: Bearer``).
-Every asset is served from the package (no CDN), so the page works with no internet.
+GET and HEAD only, except one POST: ``/answer``, the answer to a lot-control pause, which a
+lot's server (one with a PauseDesk) takes only with its bench-control token in the
+``X-Control-Token`` header (none: 401, wrong: 403; nothing changes). That token is made per
+process and printed at the terminal in the page's fragment (``#control=``), so it never
+reaches a server log or a referrer; a page opened without it only watches. A custom header
+also means no other site's form or script can send the answer (it would need a CORS
+preflight, which is not answered). It binds loopback unless a host is given; on any other
+address every request needs the view token printed at the terminal too (``?token=`` once,
+then a same-site cookie; or ``Authorization: Bearer``). Every asset is served from the
+package (no CDN), so the page works with no internet.
 
 Routes: ``/`` the page, ``/static/*`` its script and style, ``/snapshot.json`` the snapshot
-now, ``/events`` the snapshots as server-sent events.
+now, ``/events`` the snapshots as server-sent events, ``/answer`` (POST, JSON
+``{"pause": id, "choice": "continue" | "skip" | "stop"}``).
 """
 
 from __future__ import annotations
 
 import asyncio
 import hmac
+import json
 import secrets
 import socket
 import threading
@@ -23,17 +31,27 @@ from urllib.parse import parse_qs
 import uvicorn
 from starlette.applications import Starlette
 from starlette.requests import Request
-from starlette.responses import FileResponse, PlainTextResponse, Response, StreamingResponse
+from starlette.responses import (
+    FileResponse,
+    JSONResponse,
+    PlainTextResponse,
+    Response,
+    StreamingResponse,
+)
 from starlette.routing import Mount, Route
 from starlette.staticfiles import StaticFiles
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from station.errors import Refused
+from station.screen.pause_desk import PauseDesk
 from station.view.address import ViewAddress
 from station.view.hub import SnapshotHub
 
 PAGE_DIR = Path(__file__).with_name("page")
 COOKIE = "station_view_token"
+CONTROL_HEADER = "x-control-token"
+ANSWER_PATH = "/answer"
+MAX_ANSWER_BYTES = 1024
 KEEPALIVE_S = 15.0        # an SSE comment this often, so proxies and browsers keep the stream
 SECURITY_HEADERS = [
     (b"content-security-policy", b"default-src 'self'; img-src 'self' data:; frame-ancestors 'none'"),
@@ -44,7 +62,8 @@ SECURITY_HEADERS = [
 
 
 class TokenGate:
-    """ASGI middleware: only GET/HEAD; with a token, every request must carry it. Without one
+    """ASGI middleware: only GET/HEAD (and POST to /answer, which checks its own token); with a
+    token, every request must carry it. Without one
     (loopback), only a loopback Host header is served, so a web page elsewhere cannot read
     the lot through a name that resolves to 127.0.0.1 (DNS rebinding)."""
 
@@ -57,8 +76,10 @@ class TokenGate:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
-        if scope["method"] not in ("GET", "HEAD"):
-            await _plain(scope, receive, send, 405, "the live page is read-only", [(b"allow", b"GET, HEAD")])
+        post_answer = scope["method"] == "POST" and scope["path"] == ANSWER_PATH
+        if scope["method"] not in ("GET", "HEAD") and not post_answer:
+            await _plain(scope, receive, send, 405, "the live page is read-only (only a pause is answered, "
+                         f"by POST {ANSWER_PATH})", [(b"allow", b"GET, HEAD")])
             return
         set_cookie = False
         if self.token is None and self.hosts is not None and _host_of(scope) not in self.hosts:
@@ -124,7 +145,8 @@ async def _plain(scope: Scope, receive: Receive, send: Send, status: int, text: 
     await response(scope, receive, send)
 
 
-def make_app(hub: SnapshotHub, token: str | None = None, hosts: set[str] | None = None) -> ASGIApp:
+def make_app(hub: SnapshotHub, token: str | None = None, hosts: set[str] | None = None,
+             desk: PauseDesk | None = None, control_token: str | None = None) -> ASGIApp:
     async def page(request: Request) -> Response:
         return FileResponse(PAGE_DIR / "index.html", media_type="text/html")
 
@@ -138,13 +160,42 @@ def make_app(hub: SnapshotHub, token: str | None = None, hosts: set[str] | None 
         return StreamingResponse(_stream(hub, queue), media_type="text/event-stream",
                                  headers={"x-accel-buffering": "no"})
 
+    async def answer(request: Request) -> Response:
+        if desk is None or control_token is None:
+            return _answer_reply(404, "this page cannot answer a pause (it is served from the datalog "
+                                 "folder, not by the lot): answer at the station's terminal")
+        given = request.headers.get(CONTROL_HEADER)
+        if not given:
+            return _answer_reply(401, "the bench-control token is missing: open the live page from the "
+                                 "control address printed at the station's terminal")
+        if not hmac.compare_digest(given.encode(), control_token.encode()):
+            return _answer_reply(403, "wrong bench-control token: open the live page from the control "
+                                 "address printed at the station's terminal")
+        body = await request.body()
+        try:
+            data = json.loads(body) if len(body) <= MAX_ANSWER_BYTES else None
+        except ValueError:
+            data = None
+        if not isinstance(data, dict) or not isinstance(data.get("pause"), str | int) \
+                or not isinstance(data.get("choice"), str):
+            return _answer_reply(400, 'send JSON {"pause": id, "choice": "continue" | "skip" | "stop"}')
+        reply = desk.answer(str(data["pause"]), data["choice"], "page")
+        if reply.accepted:
+            hub.poke()
+        return _answer_reply(reply.status, reply.message, reply.accepted, reply.answered or reply.accepted)
+
     app = Starlette(routes=[
         Route("/", page, methods=["GET"]),
         Route("/snapshot.json", snapshot, methods=["GET"]),
         Route("/events", events, methods=["GET"]),
+        Route(ANSWER_PATH, answer, methods=["POST"]),
         Mount("/static", app=StaticFiles(directory=PAGE_DIR), name="static"),
     ])
     return TokenGate(app, token, hosts)
+
+
+def _answer_reply(status: int, message: str, accepted: bool = False, answered: bool = False) -> Response:
+    return JSONResponse({"accepted": accepted, "answered": answered, "message": message}, status_code=status)
 
 
 async def _stream(hub: SnapshotHub, queue: asyncio.Queue[str]) -> AsyncIterator[str]:
@@ -164,16 +215,20 @@ class PageServer:
     """uvicorn serving the page on a daemon thread; the socket is bound here, in the caller's
     thread, so a port in use is refused at once with one line."""
 
-    def __init__(self, hub: SnapshotHub, address: ViewAddress, token: str | None = None) -> None:
+    def __init__(self, hub: SnapshotHub, address: ViewAddress, token: str | None = None,
+                 desk: PauseDesk | None = None, control_token: str | None = None) -> None:
         if not address.loopback and token is None:
             token = new_token()
+        if desk is not None and control_token is None:
+            control_token = new_token()
         self.hub = hub
         self.address = address
         self.token = token
+        self.control_token = control_token if desk is not None else None
         self.socket = _bind(address)
         self.port = int(self.socket.getsockname()[1])
         hosts = None if token else {"127.0.0.1", "localhost", "::1", address.host.lower()}
-        config = uvicorn.Config(make_app(hub, token, hosts), log_level="warning", access_log=False,
+        config = uvicorn.Config(make_app(hub, token, hosts, desk, self.control_token), log_level="warning", access_log=False,
                                 lifespan="off", timeout_graceful_shutdown=1, limit_concurrency=64)
         self.server = uvicorn.Server(config)
         self._thread = threading.Thread(target=self.server.run, kwargs={"sockets": [self.socket]},
@@ -186,6 +241,11 @@ class PageServer:
         if host in ("0.0.0.0", "::"):
             shown = socket.gethostname()
         return f"http://{shown}:{self.port}/" + (f"?token={self.token}" if self.token else "")
+
+    @property
+    def control_url(self) -> str | None:
+        """The page's address with the bench-control token in its fragment (never sent to a server)."""
+        return None if self.control_token is None else f"{self.url}#control={self.control_token}"
 
     def start(self) -> None:
         self.hub.start()

@@ -95,6 +95,10 @@ class LotSnapshots:
         snapshot["alarms"] = [alarm_with_evidence(a, frame) for a in alarms]
         snapshot["problems"] += alarm_problems
         snapshot["paused"] = header.get("paused") is True
+        pause = header.get("pause")
+        snapshot["pause"] = pause if snapshot["paused"] and isinstance(pause, dict) else None
+        decisions = header.get("operator_decisions")
+        snapshot["decisions"] = [d for d in decisions if isinstance(d, dict)] if isinstance(decisions, list) else []
         snapshot["safe_state"] = [str(line) for line in header.get("safe_state") or []]
         ends = frame["END_T"].dropna()
         quiet_s = now - float(ends.iloc[-1]) if len(ends) else 0.0

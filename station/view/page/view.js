@@ -1,6 +1,9 @@
 // The live lot page: takes each snapshot from the station's server-sent events and draws it.
 // Text from the datalog (part ids, alarm messages, fault texts) is only ever set as text,
-// never as HTML. The page sends nothing but GET requests: it cannot control the bench.
+// never as HTML. The page sends GET requests only, except one: the answer to a lot-control
+// pause (POST answer), which the station takes only with the bench-control token. The token
+// comes in this page's address fragment (#control=..., printed at the station's terminal),
+// is kept in this tab's sessionStorage and sent in the X-Control-Token header.
 "use strict";
 
 const $ = (id) => document.getElementById(id);
@@ -130,6 +133,72 @@ function drawFiles(s) {
   if (safe.length) fill("safe-lines", safe.map((line) => el("li", {}, line)));
 }
 
+const CONTROL_KEY = "station-control-token";
+
+function controlToken() {
+  const match = /(?:^#|&)control=([^&]+)/.exec(window.location.hash);
+  if (match) {
+    sessionStorage.setItem(CONTROL_KEY, decodeURIComponent(match[1]));
+    history.replaceState(null, "", window.location.pathname + window.location.search);   // off the screen
+  }
+  return sessionStorage.getItem(CONTROL_KEY);
+}
+
+let answering = null;   // the pause id this page has sent an answer for
+let answerNote = "";
+
+function drawPause(s) {
+  const pause = s.pause, token = controlToken();
+  $("pause").hidden = !(s.paused && pause);
+  $("mode").textContent = token ? "bench control: this page can answer a pause" : "read-only page";
+  if (!(s.paused && pause)) { answering = null; return; }
+  setText("pause-question", pause.rule + (pause.site == null ? "" : " (site " + pause.site + ")") + ": " + pause.message);
+  if (!token) {
+    fill("pause-buttons", []);
+    setText("pause-note", "answer at the station's terminal (or open the control address printed there)");
+    return;
+  }
+  const labels = { continue: "CONTINUE", skip: "SKIP SITE " + pause.site, stop: "STOP THE LOT" };
+  fill("pause-buttons", pause.choices.map((choice) => {
+    const button = el("button", { type: "button", "data-choice": choice, class: "choice-" + choice }, labels[choice] || choice);
+    button.disabled = answering === pause.id;
+    button.addEventListener("click", () => answer(pause.id, choice, token));
+    return button;
+  }));
+  setText("pause-note", answering === pause.id ? answerNote : "the first answer wins, here or at the terminal");
+}
+
+async function answer(pauseId, choice, token) {
+  answering = pauseId;
+  answerNote = "sending " + choice + " ...";
+  if (last) drawPause(last);
+  let text;
+  try {
+    const response = await fetch("answer", {
+      method: "POST", headers: { "Content-Type": "application/json", "X-Control-Token": token },
+      body: JSON.stringify({ pause: pauseId, choice: choice }),
+    });
+    const reply = await response.json();
+    text = reply.message;
+    if (!reply.answered) answering = null;     // refused but still open (bad token, too early): ask again
+  } catch (error) {
+    text = "the answer did not reach the station: " + error;
+    answering = null;
+  }
+  answerNote = text;
+  if (last) drawPause(last);                   // the buttons again, if the pause is still open
+  setText("pause-note", text);
+  setText("answer-reply", "this page's answer: " + text);   // stays after the pause ends
+  $("decisions").hidden = false;
+}
+
+function drawDecisions(decisions) {
+  $("decisions").hidden = !((decisions && decisions.length) || $("answer-reply").textContent);
+  fill("decision-list", (decisions || []).map((d) => el("li", { "data-source": d.source || "" },
+    el("strong", {}, String(d.choice).toUpperCase()), " (" + (d.source || "terminal") + ", " + d.time + ") - ",
+    d.rule + (d.site == null ? "" : ", site " + d.site))));
+}
+
 let last = null;
 function draw(s, link) {
   last = s;
@@ -139,6 +208,8 @@ function draw(s, link) {
     drawFailing(s.last_failing); drawFiles(s);
   }
   drawAlarms(s.alarms, s.problems);
+  drawPause(s);
+  drawDecisions(s.decisions);
   setText("folder", s.folder || "-");
   setText("updated", s.generated_t ? "updated " + clock(s.generated_t) : "no data yet");
   document.body.dataset.generated = s.generated_t ? String(s.generated_t) : "";

@@ -1,4 +1,4 @@
-"""A DC voltmeter on a site's loop measurement node.
+"""A voltmeter on a site's loop measurement node: DC, and AC (configure_ac).
 
 Reads can take long (100 NPLC at 50 Hz is 2 s per sample, doubled by autozero), so every
 query that waits for readings extends its timeout by the expected integration time.
@@ -18,6 +18,23 @@ from drivers.scpi_values import scpi_number
 RANGES_V = (0.1, 1.0, 10.0, 100.0, 1000.0)
 NPLC_MIN, NPLC_MAX = 0.02, 100.0
 SAMPLES_MAX = 1000
+# The AC function (the meter's documented behaviour): its filters pass from their corner up,
+# each settling in AC_SETTLE_PERIODS of its corner after a trigger; readings up to AC_MAX_HZ.
+AC_FILTERS_HZ = (3.0, 20.0, 200.0)
+AC_SETTLE_PERIODS = 25.0
+AC_MAX_HZ = 100e3
+AC_APERTURE_S = (1e-3, 10.0)
+
+
+def ac_filter_for(lowest_hz: float) -> float:
+    """The fastest AC filter that passes `lowest_hz`."""
+    fitting = [f for f in AC_FILTERS_HZ if f <= lowest_hz * (1 + 1e-9)]
+    return max(fitting) if fitting else AC_FILTERS_HZ[0]
+
+
+def ac_settle_s(lowest_hz: float) -> float:
+    """How long the meter's AC filter for `lowest_hz` settles after each trigger."""
+    return AC_SETTLE_PERIODS / ac_filter_for(lowest_hz)
 
 
 class LoopDmm:
@@ -31,6 +48,9 @@ class LoopDmm:
         self.range_v: float | None = 10.0
         self.autozero = True
         self.samples = 1
+        self.function = "DC"
+        self.ac_lowest_hz = 20.0
+        self.ac_aperture_s = 0.1
 
     @property
     def role(self) -> str:
@@ -51,11 +71,31 @@ class LoopDmm:
                                  f":VOLT:DC:NPLC {scpi_number(nplc)};"
                                  f":ZERO:AUTO {'ON' if autozero else 'OFF'};:SAMP:COUN {samples}")
         self.nplc, self.range_v, self.autozero, self.samples = nplc, range_v, autozero, samples
+        self.function = "DC"
+        self.link.check_errors()
+
+    def configure_ac(self, range_v: float, lowest_hz: float, aperture_s: float, samples: int = 1) -> None:
+        """AC volts (RMS at the generator's frequency): range, the lowest frequency to pass (it
+        picks the filter, and so the settling), the aperture of each reading, the sample count."""
+        if float(range_v) not in RANGES_V:
+            raise RequestRefused(self.role, "AC range", f"{range_v} V", ", ".join(f"{r:g}" for r in RANGES_V) + " V")
+        lowest_hz = require_within(self.role, "lowest AC frequency", lowest_hz, AC_FILTERS_HZ[0], AC_MAX_HZ, "Hz",
+                                   "the AC function's band")
+        aperture_s = require_within(self.role, "AC aperture", aperture_s, *AC_APERTURE_S, "s", "instrument range")
+        if isinstance(samples, bool) or not isinstance(samples, int) or not 1 <= samples <= SAMPLES_MAX:
+            raise RequestRefused(self.role, "sample count", samples, f"1 to {SAMPLES_MAX}")
+        self.link.write_and_wait(f":CONF:VOLT:AC {scpi_number(range_v)};:VOLT:AC:BAND {scpi_number(lowest_hz)};"
+                                 f":VOLT:AC:APER {scpi_number(aperture_s)};:SAMP:COUN {samples}")
+        self.function, self.range_v, self.samples = "AC", float(range_v), samples
+        self.ac_lowest_hz, self.ac_aperture_s = lowest_hz, aperture_s
         self.link.check_errors()
 
     @property
     def integration_time_s(self) -> float:
-        """Expected time of one trigger: all samples, each NPLC / line frequency, x2 with autozero."""
+        """Expected time of one trigger: all samples, each NPLC / line frequency, x2 with autozero
+        (AC: the filter's settling, then each sample's aperture)."""
+        if self.function == "AC":
+            return ac_settle_s(self.ac_lowest_hz) + self.ac_aperture_s * self.samples
         per_sample = self.nplc / self.line_hz * (2.0 if self.autozero else 1.0)
         return per_sample * self.samples
 

@@ -15,6 +15,7 @@ from typing import Generic, TypeVar
 from drivers.dio_handler import DioHandshakeHandler, HandshakeTiming
 from drivers.dmm import LoopDmm
 from drivers.force import ForceSource
+from drivers.generator import FunctionGenerator
 from drivers.handler import PartHandler, ScpiHandler
 from drivers.scpi_link import ScpiLink
 from drivers.supply import ApplySupply, DualRailSupply
@@ -80,7 +81,11 @@ def _dio_handler(link: ScpiLink, settings: DriverSettings) -> DioHandshakeHandle
 HANDLER: Role[PartHandler] = Role("handler", {"scpi-handler": lambda link, s: ScpiHandler(link),
                                               "dio-handshake": _dio_handler})
 
-ROLES: tuple[Role[object], ...] = (SUPPLY, FORCE, DMM, SWITCH, HANDLER)
+# A sine on the difference amplifier's tied inputs: its peak never beyond the rails' limit.
+GENERATOR: Role[FunctionGenerator] = Role("generator", {
+    "scpi-function-generator": lambda link, s: FunctionGenerator(link, s.max_rail_v)})
+
+ROLES: tuple[Role[object], ...] = (SUPPLY, FORCE, DMM, SWITCH, HANDLER, GENERATOR)
 
 
 @dataclass(frozen=True)

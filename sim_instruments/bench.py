@@ -21,6 +21,7 @@ from sim_instruments.dmm import Dmm
 from sim_instruments.faults import FaultSettings
 from sim_instruments.fixture_faults import FixtureFault
 from sim_instruments.force import ForceSource
+from sim_instruments.generator import FunctionGenerator
 from sim_instruments.handler import Handler
 from sim_instruments.hislip_server import HislipServer
 from sim_instruments.instrument import Instrument
@@ -42,7 +43,8 @@ from sim_instruments.switch import FixtureSwitch
 from sim_instruments.vxi11_server import Vxi11Server
 
 DRIVERS = {"supply": "scpi-dual-supply", "force": "scpi-force-source", "dmm": "scpi-dmm",
-           "switch": "scpi-fixture-switch", "handler": "scpi-handler"}
+           "switch": "scpi-fixture-switch", "handler": "scpi-handler",
+           "generator": "scpi-function-generator"}
 # The handshake's timing for the wired handler (its own minimums are 1 ms and 0.5 ms of
 # model time, sim_instruments/dio.py); the prefix numbers parts as the simulated lot does.
 HANDSHAKE_TEXT = ("handshake:\n  strobe_width: 2 ms\n  settle: 1 ms\n  start_timeout: 10 s\n"
@@ -101,6 +103,7 @@ class SimSettings:
     fixture_kind: str | tuple[str, ...] = "servo_loop"
     diff_gain: float = 1.0
     diff_tolerance: float = 1e-4
+    generator: bool = False   # a function generator on the tied inputs (role generator)
 
     def transport_of(self, role: str) -> str:
         return self.transports.get(role, self.transport)
@@ -181,6 +184,8 @@ class SimBench:
                                                   **self._common("handler", 11))
         else:
             raise ValueError(f"unknown handler interface {s.handler_interface!r}: use scpi or dio")
+        if s.generator:
+            self.instruments["generator"] = FunctionGenerator(m, **self._common("generator", 12))
 
     # --- life cycle ----------------------------------------------------------------------
     def start(self) -> SimBench:
@@ -298,6 +303,8 @@ class SimBench:
             f"{dmm_lines}\n"
             f'  switch:  {{resource: "{res["switch"]}", driver: {DRIVERS["switch"]}, timeout: 5 s}}\n'
             f'  handler: {{resource: "{res["handler"]}", driver: {handler_driver}, timeout: 5 s}}\n'
+            + (f'  generator: {{resource: "{res["generator"]}", driver: {DRIVERS["generator"]}, timeout: 5 s}}\n'
+               if "generator" in res else "") +
             "fixture:\n"
             f"  rf: {_si(s.rf_ohm, 'Ohm')}\n"
             f"  rs: {_si(s.rs_ohm, 'Ohm')}\n"

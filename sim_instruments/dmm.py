@@ -1,9 +1,18 @@
-"""Simulated DC voltmeter on a loop measurement node.
+"""Simulated voltmeter on a loop measurement node: DC, and AC at the generator's frequency.
 
-A reading integrates the node over NPLC / LFRequency seconds of model time and really takes
+A DC reading integrates the node over NPLC / LFRequency seconds of model time and really takes
 that long (divided by the bench speed); autozero ON adds a zero phase of the same length.
 The instrument lock is held while it waits, the model lock is not, so several DMMs can
 integrate at the same time. Noise is drawn from a generator seeded per DMM.
+
+AC (CONFigure:VOLTage:AC): a narrow-band, synchronous reading of the node's component at the
+function generator's frequency, over an aperture (VOLTage:AC:APERture) after the AC filter
+has settled (VOLTage:AC:BANDwidth picks the filter: the lower its corner, the longer it takes;
+the meter waits for it after every trigger). Its noise is the node's white noise over that
+aperture, in phase and in quadrature, so a reading is the magnitude of signal plus noise. A
+broadband true-RMS reading would add all the node's noise up to the meter's bandwidth (about
+1.5 uV/rtHz x 300 Hz^0.5 = 0.5 mV at the demo's gain of 100): such a meter could not see a
+part's CMRR at all; this one models what a lock-in style reading can.
 """
 
 from __future__ import annotations
@@ -27,6 +36,25 @@ NPLC_RANGE = (0.02, 100.0)
 # The reading buffer: 131072 readings are 1 MiB as REAL,64 (IEEE 754 doubles, big-endian).
 BUFFER_READINGS = 131072
 OPEN_INPUT_V = 0.0       # an open input (no scanner relay closed) reads about zero
+# The AC function (invented meter): filters with these corners (the lowest frequency they
+# pass), each settling in AC_SETTLE_PERIODS of its corner; the input's own -3 dB bandwidth;
+# its own noise density per volt of range; the generator's amplitude jitter seen per reading.
+AC_FILTERS_HZ = (3.0, 20.0, 200.0)
+AC_SETTLE_PERIODS = 25.0
+AC_INPUT_BANDWIDTH_HZ = 300e3
+AC_NOISE_PER_RANGE_RTHZ = 1e-7
+AC_APERTURE_S = (1e-3, 10.0)
+GENERATOR_JITTER = 1e-4
+
+
+def ac_filter_for(lowest_hz: float) -> float:
+    """The fastest filter whose corner is at or below `lowest_hz` (the slowest if none is)."""
+    fitting = [f for f in AC_FILTERS_HZ if f <= lowest_hz * (1 + 1e-9)]
+    return max(fitting) if fitting else AC_FILTERS_HZ[0]
+
+
+def ac_settle_s(filter_hz: float) -> float:
+    return AC_SETTLE_PERIODS / filter_hz
 
 
 def range_for(value: float) -> float:
@@ -51,6 +79,7 @@ class Acquisition:
     autozero: bool
     nplc: float
     readings: list[float] | None = None   # +inf: overload
+    ac: bool = False
 
     @property
     def end(self) -> float:
@@ -77,6 +106,9 @@ class Dmm(Instrument):
         self.autozero = True
         self.real_format = False   # FORMat:DATA ASCii (text) or REAL (binary block)
         self._acquisition = None
+        self.function = "DC"
+        self.ac_filter_hz = 20.0
+        self.ac_aperture_s = 0.1
 
     @property
     def ideal(self) -> bool:
@@ -91,6 +123,14 @@ class Dmm(Instrument):
         range_arg = number("V", 0.0, RANGES_V[-1], {"MIN": RANGES_V[0], "DEF": 10.0})
         conf_range = first_of(choice("AUTO"), range_arg)
         tree.add("CONFigure[:VOLTage][:DC]", self._configure, args=Arguments([], [conf_range]))
+        tree.add("CONFigure[:VOLTage]:AC", self._configure_ac, args=Arguments([], [conf_range]))
+        tree.add("[SENSe:]VOLTage:AC:RANGe[:UPPer]", self._set_range,
+                 lambda: self.dialect.number(self.range_v), args=Arguments([range_arg]))
+        tree.add("[SENSe:]VOLTage:AC:BANDwidth", self._set_filter, lambda: self.dialect.number(self.ac_filter_hz),
+                 args=Arguments([number("HZ", AC_FILTERS_HZ[0], AC_INPUT_BANDWIDTH_HZ, {"DEF": 20.0})]))
+        tree.add("[SENSe:]VOLTage:AC:APERture", self._set_aperture, lambda: self.dialect.number(self.ac_aperture_s),
+                 args=Arguments([number("S", *AC_APERTURE_S, {"DEF": 0.1})]))
+        tree.add("[SENSe:]FUNCtion", query=lambda: f'"VOLT:{self.function}"')
         tree.add("[SENSe:]VOLTage[:DC]:NPLCycles", self._set_nplc,
                  lambda: self.dialect.number(self.nplc),
                  args=Arguments([number("", *NPLC_RANGE, {"DEF": 1.0})]))
@@ -120,7 +160,18 @@ class Dmm(Instrument):
             self.range_v = range_for(float(value))  # type: ignore[arg-type]
 
     def _configure(self, value: object = None) -> None:
+        self.function = "DC"
         self._apply_range(value)
+
+    def _configure_ac(self, value: object = None) -> None:
+        self.function = "AC"
+        self._apply_range(value)
+
+    def _set_filter(self, lowest_hz: float) -> None:
+        self.ac_filter_hz = ac_filter_for(lowest_hz)
+
+    def _set_aperture(self, seconds: float) -> None:
+        self.ac_aperture_s = seconds
 
     def _set_nplc(self, value: float) -> None:
         self.nplc = value
@@ -158,6 +209,12 @@ class Dmm(Instrument):
         with self.model.lock:
             now = self.clock.now()
             site = self.model.dmm_site(self.index)
+        if self.function == "AC":   # the filter settles first (the meter's own trigger delay)
+            self._acquisition = Acquisition(
+                t0=now + ac_settle_s(self.ac_filter_hz), count=self.samples, integration_s=self.ac_aperture_s,
+                cycle_s=self.ac_aperture_s, site=site, range_v=self.range_v, autorange=self.autorange,
+                autozero=False, nplc=self.nplc, ac=True)
+            return
         self._acquisition = Acquisition(
             t0=now, count=self.samples, integration_s=integration,
             cycle_s=integration * (2.0 if self.autozero else 1.0), site=site,
@@ -194,7 +251,26 @@ class Dmm(Instrument):
         count = str(len(data))
         return f"#{len(count)}{count}" + data.decode("latin-1")
 
+    def _ac_reading(self, acq: Acquisition) -> float:
+        with self.model.lock:
+            if self.model.dmm_shorted(self.index) or acq.site is None:
+                signal, part_sigma = 0.0, 0.0
+            else:
+                signal = self.model.ac_node_vrms(acq.site)
+                part_sigma = self.model.node_noise(acq.site, acq.integration_s)
+            frequency = self.model.generator.frequency_hz
+        range_v = range_for(signal) if acq.autorange else acq.range_v
+        signal *= (1.0 + float(self._rng.normal(0.0, GENERATOR_JITTER))) / math.hypot(1.0, frequency / AC_INPUT_BANDWIDTH_HZ)
+        own = AC_NOISE_PER_RANGE_RTHZ * range_v / math.sqrt(2.0 * acq.integration_s)
+        sigma = math.hypot(part_sigma, own)
+        in_phase, quadrature = self._rng.normal(0.0, sigma, 2)
+        gain = 1.0 + self.model.errors.dmm_gain_error[self.index - 1]
+        value = gain * math.hypot(signal + float(in_phase), float(quadrature))
+        return math.inf if value > OVERRANGE * range_v else value
+
     def _reading(self, acq: Acquisition, i: int) -> float:
+        if acq.ac:
+            return self._ac_reading(acq)
         start = acq.t0 + i * acq.cycle_s
         with self.model.lock:
             if self.model.dmm_shorted(self.index):

@@ -197,6 +197,28 @@ class FixtureSpec:
 
 
 @dataclass
+class GeneratorState:
+    """The function generator's sine: frequency, RMS amplitude, output relay, and the model
+    time of its last change (the AC voltmeter's filter settles from there)."""
+
+    frequency_hz: float = 1e3
+    amplitude_vrms: float = 0.0
+    output: bool = False
+    changed_t: float = 0.0
+
+    @property
+    def live_vrms(self) -> float:
+        return self.amplitude_vrms if self.output else 0.0
+
+
+def cm_slope_at(part: PartTruth, vcm: float, span: float, frequency_hz: float) -> complex:
+    """The part's common-mode slope at `frequency_hz` (input-referred, V/V, complex): its DC
+    slope at `vcm` rising with a single pole at its corner (the rejection falls as
+    1 / sqrt(1 + (f/fc)^2) in magnitude)."""
+    return part.cm_slope(vcm, span) * complex(1.0, frequency_hz / part.cmrr_corner_hz)
+
+
+@dataclass
 class SupplyChannel:
     """One rail: programmed level, output relay, compliance, and the slewing actual level."""
 
@@ -255,6 +277,8 @@ class BenchModel:
         self.channels = (SupplyChannel(), SupplyChannel())
         self.force_level_v = 0.0
         self.force_output = False
+        # The function generator, summed onto the tied inputs of the difference amplifier.
+        self.generator = GeneratorState()
         self.relays: set[int] = set()
         self.seated: list[PartTruth | None] = [None] * fixture.sites
         self.contact: list[bool] = [False] * fixture.sites
@@ -284,6 +308,32 @@ class BenchModel:
         if output is not None:
             self.force_output = output
         self._changed(now, now + FORCE_SETTLE_START_S)
+
+    def set_generator(self, now: float, *, frequency: float | None = None, vrms: float | None = None,
+                      output: bool | None = None) -> None:
+        gen = self.generator
+        if frequency is not None:
+            gen.frequency_hz = frequency
+        if vrms is not None:
+            gen.amplitude_vrms = vrms
+        if output is not None:
+            gen.output = output
+        gen.changed_t = now
+
+    def ac_node_vrms(self, site: int) -> float:
+        """RMS of the node's component at the generator's frequency: only a site in the
+        difference amplifier sees the sine, through the part's common-mode slope at that
+        frequency plus the resistor mismatch's (flat) term, times the amplifier's gain."""
+        part = self.seated[site - 1]
+        gen = self.generator
+        if (part is None or not self.contact[site - 1] or not self.op.powered[site - 1]
+                or not self.in_diff_amp(site) or self._saturated(site)):
+            return 0.0
+        span = self.op.vplus - self.op.vminus
+        fixture = self.fixture
+        mismatch = fixture.diff_slope[site - 1] if fixture.diff_slope else 0.0
+        slope = cm_slope_at(part, self.diff_vcm(site), span, gen.frequency_hz) + mismatch
+        return fixture.diff_gain * gen.live_vrms * abs(slope)
 
     def set_relays(self, closed: set[int], now: float) -> None:
         self.relays = set(closed)

@@ -81,6 +81,7 @@ class InstrumentsSection(_Strict):
     dmm: list[InstrumentEntry] = Field(min_length=1)
     switch: InstrumentEntry
     handler: InstrumentEntry | None = None
+    generator: InstrumentEntry | None = None   # a sine on the difference amplifier's inputs
 
 
 class ResolutionSection(_Strict):
@@ -298,6 +299,10 @@ class BenchConfig:
     def has_handler(self) -> bool:
         return "handler" in self.instruments
 
+    @property
+    def has_generator(self) -> bool:
+        return "generator" in self.instruments
+
 
 def load_bench_config(path: str | Path) -> BenchConfig:
     doc = load_yaml_file(path)
@@ -331,6 +336,8 @@ def _build(doc: YamlDocument, source: Path | None) -> BenchConfig:
     add("switch", model.instruments.switch)
     if model.instruments.handler is not None:
         add("handler", model.instruments.handler)
+    if model.instruments.generator is not None:
+        add("generator", model.instruments.generator)
     bias = _check_bias(doc, fixture)
     kinds, diff_amp = _check_fixture_kinds(doc, fixture)
     station = model.station or (source.stem if source is not None else "bench")
@@ -476,6 +483,8 @@ def _check_drivers(doc: YamlDocument, section: InstrumentsSection) -> None:
     ]
     if section.handler is not None:
         entries.append((["instruments", "handler"], "handler", section.handler))
+    if section.generator is not None:
+        entries.append((["instruments", "generator"], "generator", section.generator))
     for path, role, entry in entries:
         known = DRIVERS.get(entry.driver)
         if known is None or known.role != role:

@@ -17,8 +17,9 @@ import click
 from drivers.dmm import LoopDmm
 from drivers.errors import InstrumentError, InstrumentOpenError
 from drivers.force import ForceSource
+from drivers.generator import FunctionGenerator
 from drivers.handler import ManualHandler, PartHandler
-from drivers.registry import DMM, FORCE, HANDLER, SUPPLY, SWITCH, DriverSettings, Role
+from drivers.registry import DMM, FORCE, GENERATOR, HANDLER, SUPPLY, SWITCH, DriverSettings, Role
 from drivers.retry import NO_RETRY
 from drivers.scpi_link import ScpiLink
 from drivers.supply import DualRailSupply
@@ -40,6 +41,7 @@ class Bench:
     dmms: list[LoopDmm]
     switch: FixtureSwitch
     handler: PartHandler
+    generator: FunctionGenerator | None = None   # where the bench config names one
     unverified: list[str] | None = None   # set by safe_state(): what could not be confirmed
 
     def all_links(self) -> dict[str, ScpiLink]:
@@ -47,6 +49,8 @@ class Bench:
         links = {"supply": self.supply.link, "force": self.force.link}
         links.update({dmm.link.role: dmm.link for dmm in self.dmms})
         links["switch"] = self.switch.link
+        if self.generator is not None:
+            links["generator"] = self.generator.link
         handler_link = getattr(self.handler, "link", None)
         if isinstance(handler_link, ScpiLink):
             links["handler"] = handler_link
@@ -60,7 +64,7 @@ class Bench:
         return found
 
     def safe_state(self) -> list[str]:
-        """Force to 0 V and off, then both rails down and off, then every relay open.
+        """Generator off, force to 0 V and off, then both rails down and off, then every relay open.
 
         Each step is tried even if an earlier one failed, with short timeouts and no resends
         beyond one reconnect, so an instrument that does not answer is reported within
@@ -75,7 +79,10 @@ class Bench:
             self.switch.open_all()
             self.switch.confirm_open()
 
-        steps: list[tuple[ScpiLink, str, Callable[[], None], str]] = [
+        steps: list[tuple[ScpiLink, str, Callable[[], None], str]] = [] if self.generator is None else [
+            (self.generator.link, "output off", self.generator.zero_and_off,
+             "generator output may still be live: switch it off at the instrument")]
+        steps += [
             (self.force.link, "level 0 V and output off", self.force.zero_and_off,
              "force output may still be live: switch it off at the instrument"),
             (self.supply.link, "rails ramped to 0 V and outputs off", self.supply.ramp_down_and_off,
@@ -166,7 +173,8 @@ def open_bench(config: BenchConfig, *, ask: Callable[[str], str] | None = None,
                       force=build(FORCE, "force"),
                       dmms=[build(DMM, name) for name in config.dmm_roles],
                       switch=build(SWITCH, "switch"),
-                      handler=handler)
+                      handler=handler,
+                      generator=build(GENERATOR, "generator") if "generator" in links else None)
     except BaseException:
         for link in links.values():
             link.close()
@@ -204,6 +212,8 @@ def _check_identity(link: ScpiLink, expected: str | None) -> None:
 def _known_state(bench: Bench) -> None:
     for link in bench.all_links().values():
         link.reset()
+    if bench.generator is not None:
+        bench.generator.configure()
     bench.force.configure()
     bench.supply.outputs(False)
     bench.supply.set_rails(0.0, 0.0)

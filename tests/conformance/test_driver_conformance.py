@@ -21,7 +21,7 @@ from pathlib import Path
 import pytest
 
 from drivers.errors import RequestRefused
-from drivers.registry import DMM, FORCE, HANDLER, SUPPLY, SWITCH, DriverSettings
+from drivers.registry import DMM, FORCE, GENERATOR, HANDLER, SUPPLY, SWITCH, DriverSettings
 from drivers.scpi_link import ScpiLink
 from station.config.bench_config import BenchConfig, load_bench_config, parse_bench_config
 
@@ -48,7 +48,7 @@ def target(request) -> Iterator[Target]:
             pytest.skip("real-bench conformance needs --bench BENCH.yaml")
         yield Target(load_bench_config(Path(path)), simulated=False)
         return
-    settings = sim_bench.SimSettings(seed=4, sites=2, parts=8, speed=20.0)
+    settings = sim_bench.SimSettings(seed=4, sites=2, parts=8, speed=20.0, generator=True)
     with sim_bench.SimBench(settings) as sim:
         yield Target(parse_bench_config(sim.bench_config_text(), "sim-bench.yaml"), True, sim)
 
@@ -132,6 +132,45 @@ def test_dmm_drivers(target, links):
             with pytest.raises(RequestRefused):
                 dmm.configure(nplc=1.0, range_v=3.0, autozero=False)   # not a range
             links[instrument].check_errors()
+
+
+def test_dmm_drivers_read_ac(target, links):
+    for instrument in target.config.dmm_roles:
+        for name in _drivers(DMM, target, instrument):
+            dmm = DMM.build(name, links[instrument], _settings(target.config))
+            dmm.configure_ac(range_v=1.0, lowest_hz=200.0, aperture_s=0.01, samples=2)
+            # The 200 Hz filter settles in 25 periods of its corner, then two 10 ms apertures.
+            assert dmm.integration_time_s == pytest.approx(25 / 200 + 0.02), name
+            readings = dmm.read_samples()
+            assert len(readings) == 2 and all(v >= 0.0 for v in readings), name   # an RMS magnitude
+            with pytest.raises(RequestRefused):
+                dmm.configure_ac(range_v=1.0, lowest_hz=1e6, aperture_s=0.01)   # beyond its band
+            dmm.configure(nplc=1.0, range_v=10.0, autozero=False)                 # back to DC
+            assert dmm.integration_time_s == pytest.approx(1 / target.config.line_hz), name
+            links[instrument].check_errors()
+
+
+def test_generator_drivers(target, links):
+    if "generator" not in target.config.instruments:
+        pytest.skip("the bench has no function generator")
+    for name in _drivers(GENERATOR, target, "generator"):
+        generator = GENERATOR.build(name, links["generator"], _settings(target.config))
+        generator.configure()
+        assert generator.output_state() is False, name
+        generator.set_sine(1234.5, 0.5)
+        assert generator.frequency() == pytest.approx(1234.5), name
+        assert generator.amplitude_vrms() == pytest.approx(0.5), name
+        generator.output(True)
+        assert generator.output_state() is True, name
+        before = links["generator"].transactions
+        with pytest.raises(RequestRefused):
+            generator.set_sine(1e3, target.config.max_rail_v)     # peak sqrt(2) x beyond the limit
+        with pytest.raises(RequestRefused):
+            generator.set_sine(1e7, 0.1)                           # beyond the instrument
+        assert links["generator"].transactions == before, f"{name} sent a refused setting"
+        generator.zero_and_off()
+        assert generator.output_state() is False, name
+        links["generator"].check_errors()
 
 
 def test_switch_drivers(target, links):

@@ -83,14 +83,7 @@ class FixtureSwitch:
         unknown = closed - set(self.bias_channels)
         if unknown:
             raise RequestRefused(self.role, "bias channel", min(unknown), f"one of {list(self.bias_channels)}")
-        others = set(self.bias_channels) - closed
-        parts = []
-        if others:
-            parts.append(f"ROUT:OPEN {channel_list(others)}")
-        if closed:
-            parts.append(f"ROUT:CLOS {channel_list(closed)}")
-        if parts:
-            self.link.write_and_wait(";:".join(parts))
+        self._close_exactly(closed, set(self.bias_channels))
 
     def switch_to_diff_amp(self, sites: set[int]) -> None:
         """Switch `sites` to the difference amplifier and every other site to the servo loop,
@@ -99,13 +92,18 @@ class FixtureSwitch:
             raise RequestRefused(self.role, "switch-over", sorted(sites),
                                  "none: the fixture has no switch-over relays (fixture.diff_amp.relays)")
         wanted = {self.switch_over_channels[self._site(s) - 1] for s in sites}
-        others = set(self.switch_over_channels) - wanted
+        self._close_exactly(wanted, set(self.switch_over_channels))
+
+    def _close_exactly(self, closed: set[int], group: set[int]) -> None:
+        """Close `closed` and open the rest of the relay group `group`, in one message."""
+        others = group - closed
         parts = []
         if others:
             parts.append(f"ROUT:OPEN {channel_list(others)}")
-        if wanted:
-            parts.append(f"ROUT:CLOS {channel_list(wanted)}")
-        self.link.write_and_wait(";:".join(parts))
+        if closed:
+            parts.append(f"ROUT:CLOS {channel_list(closed)}")
+        if parts:
+            self.link.write_and_wait(";:".join(parts))
 
     def open_all(self) -> None:
         self.link.write_and_wait("ROUT:OPEN:ALL")

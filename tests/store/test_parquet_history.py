@@ -15,7 +15,7 @@ from station.review.summary import summarise
 from station.store.parquet import parquet_summary
 from station.store.summary_sql import Selection
 from tests.store.test_store_summary import assert_same_summary
-from tests.support.review_datalogs import LotSpec, make_datalog
+from tests.support.review_datalogs import LotSpec, hold_back_last_index, make_datalog
 
 
 @pytest.fixture(scope="module")
@@ -63,15 +63,11 @@ def _rows(out: Path, table: str) -> int:
 
 
 def test_a_growing_lot_is_exported_piece_by_piece(tmp_path: Path) -> None:
-    import json
-
     folder = make_datalog(tmp_path / "a", LotSpec(parts=12, tester_faults=0, retests=0))
     out = tmp_path / "history"
     runner = CliRunner()
     # The lot is running: its last index (4 parts) is still under test.
-    (folder / "in_progress.json").write_text(json.dumps({"lot_id": "LOT-T1", "ids": ["P00009"],
-                                                         "presented_before": 8, "parts_rows": 8,
-                                                         "results_rows": 0, "t": 0.0}))
+    hold_back_last_index(folder)
     first = runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)])
     assert first.exit_code == 0 and "8 parts (written)" in first.output, first.output
     (folder / "in_progress.json").unlink()
@@ -88,14 +84,10 @@ def test_a_growing_lot_is_exported_piece_by_piece(tmp_path: Path) -> None:
 
 
 def test_a_lot_rewritten_by_a_resume_replaces_its_pieces(tmp_path: Path) -> None:
-    import json
-
     folder = make_datalog(tmp_path / "a", LotSpec(parts=12, tester_faults=0, retests=0))
     out = tmp_path / "history"
     runner = CliRunner()
-    (folder / "in_progress.json").write_text(json.dumps({"lot_id": "LOT-T1", "ids": ["P00009"],
-                                                         "presented_before": 8, "parts_rows": 8,
-                                                         "results_rows": 0, "t": 0.0}))
+    hold_back_last_index(folder)
     assert runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)]).exit_code == 0
     (folder / "in_progress.json").unlink()
     assert runner.invoke(main, ["export", str(folder), "--to", "parquet", str(out)]).exit_code == 0

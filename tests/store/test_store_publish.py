@@ -3,7 +3,6 @@ every folder exactly once in the store, with all of its result rows."""
 
 from __future__ import annotations
 
-import json
 import os
 import signal
 import subprocess
@@ -19,7 +18,7 @@ from station.cli.main import main
 from station.review.load import read_datalog_folder
 from station.store.connect import connect
 from station.store.publish import publish_folder, read_folder
-from tests.support.review_datalogs import LotSpec, make_datalog
+from tests.support.review_datalogs import LotSpec, hold_back_last_index, make_datalog
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -153,9 +152,7 @@ def test_a_folder_rewritten_by_a_resume_replaces_the_rows_it_dropped(store: str,
 
 def test_an_index_under_test_is_left_for_later(store: str, tmp_path: Path) -> None:
     folder = make_datalog(tmp_path / "a", LotSpec(parts=12, tester_faults=0, retests=0))
-    (folder / "in_progress.json").write_text(json.dumps({"lot_id": "LOT-T1", "ids": ["P00009"],
-                                                         "presented_before": 8, "parts_rows": 8,
-                                                         "results_rows": 0, "t": 0.0}))
+    hold_back_last_index(folder)
     result = _publish(store, folder)
     assert result.exit_code == 0 and "8 part(s) added" in result.output and "4 under test" in result.output
     (folder / "in_progress.json").unlink()

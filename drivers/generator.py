@@ -9,25 +9,22 @@ from __future__ import annotations
 
 import math
 
-from drivers.errors import InstrumentError, attempt_each
+from drivers.errors import attempt_each
 from drivers.range_checks import require_within
 from drivers.scpi_link import ScpiLink
 from drivers.scpi_values import scpi_number
+from drivers.switched_output import SwitchedOutput
 
 MAX_VPP = 10.0                       # the instrument's range into a high impedance
 FREQUENCY_HZ = (1e-3, 1e6)
 SAFE_VRMS = 0.01                     # what the output is left at on the way out
 
 
-class FunctionGenerator:
+class FunctionGenerator(SwitchedOutput):
     def __init__(self, link: ScpiLink, max_level_v: float) -> None:
         self.link = link
         # The sine's peak, sqrt(2) x RMS, stays within the bench limit and the instrument's.
         self.max_peak_v = min(float(max_level_v), MAX_VPP / 2.0)
-
-    @property
-    def role(self) -> str:
-        return self.link.role
 
     def set_sine(self, frequency_hz: float, amplitude_vrms: float) -> None:
         """A sine of `amplitude_vrms` at `frequency_hz`, in one message; refused beyond the
@@ -46,22 +43,6 @@ class FunctionGenerator:
         self.link.write_and_wait("VOLT:UNIT VRMS")
         return self.link.query_float("VOLT?", unit="V")
 
-    def output(self, on: bool) -> None:
-        self.link.write_and_wait(f"OUTP {'ON' if on else 'OFF'}")
-
-    def output_state(self) -> bool:
-        return self.link.query_bool("OUTP?")
-
-    def configure(self) -> None:
-        """Output off at a small amplitude, error queue checked."""
-        self.zero_and_off()
-        self.link.check_errors()
-
     def zero_and_off(self) -> None:
         """Output off and the amplitude down; both tried, the first failure raised at the end."""
         attempt_each((lambda: self.output(False), lambda: self.set_sine(1e3, SAFE_VRMS), self._confirm_off))
-
-    def _confirm_off(self) -> None:
-        if self.output_state():
-            raise InstrumentError(self.role, self.link.resource, "OUTP?",
-                                  "still reports the output on after OUTP OFF")

@@ -390,6 +390,10 @@ class ScpiLink:
         if isinstance(exc, OSError):
             return InstrumentConnectionLost(self.role, self.resource, command,
                                             f"failed: connection lost ({exc.__class__.__name__}: {exc})")
+        if isinstance(exc, RuntimeError) and _is_dropped_link(exc, self._instrument):
+            # pyvisa-py's HiSLIP reader raises a bare RuntimeError when the peer closes.
+            return InstrumentConnectionLost(self.role, self.resource, command,
+                                            "failed: the instrument closed the connection")
         if isinstance(exc, UnicodeDecodeError):
             return InstrumentBadReply(self.role, self.resource, command,
                                       "returned bytes that are not text (garbled reply)")
@@ -452,6 +456,13 @@ def _socket_state(instrument: Any) -> str:
         return "closed" if sock.recv(1, socket.MSG_PEEK) == b"" else "data"
     except OSError:
         return "closed"
+
+
+def _is_dropped_link(exc: RuntimeError, instrument: Any) -> bool:
+    """True when a RuntimeError from the VISA library means the peer closed the link."""
+    if "connection was dropped" in str(exc).lower():
+        return True
+    return instrument is not None and _socket_state(instrument) == "closed"
 
 
 def _is_raw_socket(resource: str) -> bool:

@@ -253,6 +253,26 @@ def test_dropped_connection_then_reconnect(bench, sim):
     assert link.identify().startswith("AMPSCREEN-SIM,")
 
 
+def test_a_peer_close_seen_mid_read_is_a_lost_connection(bench, monkeypatch):
+    # pyvisa-py's HiSLIP reader raises RuntimeError("Connection was dropped by server.") when
+    # the socket reads empty after select (pyvisa_py/protocols/hislip.py, receive_exact_into);
+    # whether a drop shows up that way or as a timeout depends on timing, so force that path.
+    link = bench.dmms[1].link
+    link.retry = NO_RETRY
+    instrument = link._instrument
+
+    def dropped() -> str:
+        raise RuntimeError("Connection was dropped by server.")
+
+    monkeypatch.setattr(instrument, "read", dropped)
+    with pytest.raises(InstrumentConnectionLost) as caught:
+        link.query("*IDN?")
+    assert "closed the connection" in str(caught.value)
+    monkeypatch.undo()
+    link.reconnect()
+    assert link.identify().startswith("AMPSCREEN-SIM,")
+
+
 def test_garbage_reply_is_bad_reply(bench, sim):
     link = bench.supply.link
     link.retry = NO_RETRY

@@ -27,7 +27,6 @@ from datetime import UTC, datetime
 from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, StrictInt
-from scipy.stats import fisher_exact
 
 from station.config.files import YamlDocument, validate_model
 
@@ -162,6 +161,8 @@ class LotControl:
         self.clock = clock
         self._state = {rule.name: _State() for rule in rules}
         self._new: list[Alarm] = []
+        if any(rule.kind == "site_yield" for rule in rules):
+            _fisher_less([[1, 0], [0, 1]])   # load scipy.stats now, before the lot, not mid-lot
 
     def observe(self, part_id: str, site: int, passed: bool | None, soft_bin: int) -> None:
         if passed is None:             # a tester fault says nothing of the parts
@@ -217,7 +218,7 @@ class LotControl:
             return
         good, bad = sum(s.passed for s in block), sum(not s.passed for s in block)
         o_good, o_bad = sum(s.passed for s in others), sum(not s.passed for s in others)
-        _odds, p = fisher_exact([[good, bad], [o_good, o_bad]], alternative="less")
+        p = _fisher_less([[good, bad], [o_good, o_bad]])
         threshold = rule.alpha
         if p < threshold:
             self._raise(rule, seen.site,
@@ -239,3 +240,14 @@ class LotControl:
             self._raise(rule, None, f"soft bin {bins}: {len(hits)} of the last {len(state.recent)} parts "
                         f"({share:.1f} %, ceiling {rule.ceiling_pct:g} %)", hits)
             state.recent.clear()
+
+
+def _fisher_less(table: list[list[int]]) -> float:
+    """One-sided (less) Fisher exact p-value of a 2x2 table.
+
+    scipy.stats is imported here, not at module level: it takes about a second, and every
+    `station` command imports this module through the sequence schema."""
+    from scipy.stats import fisher_exact
+
+    _odds, p = fisher_exact(table, alternative="less")
+    return float(p)

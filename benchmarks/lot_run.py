@@ -21,7 +21,7 @@ from sim_instruments.bench import CommandRecord, SimBench, SimSettings
 from station.config.plan import build_plan
 from station.datalog.writer import DatalogWriter
 from station.lot.bench import open_bench
-from station.lot.runner import LotRunner, LotSettings
+from station.lot.runner import LotRunner, LotSettings, scaled_sleep
 from station.lot.site_readings import ReadingStats
 
 
@@ -66,7 +66,7 @@ def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
     `on_part` is told of every part logged, as the command line's live page is."""
     speed = settings.speed
     if sleep is None:
-        sleep = time.sleep if speed == 1 else (lambda seconds: time.sleep(seconds / speed))
+        sleep = scaled_sleep(speed)
     sim: SimBench | BenchProcess = BenchProcess(settings) if separate_process else SimBench(settings)
     with sim, tempfile.TemporaryDirectory() as temp:
         config = yaml.safe_load(sim.bench_config_text())

@@ -96,6 +96,9 @@ class LotJob:
     pat_baseline: Path | None = None   # dynamic PAT limits from this earlier lot
     view: Any = None               # a ViewAddress: serve the live page (station/cli/view_commands.py)
     store: str | None = None        # --store URL: the live sink publishes each part (never in lot.json)
+    # A dry run's sim speed (model seconds per wall second): the station's own waits are divided
+    # by it, so a fast dry run sees the settling of a slow one, only sooner. 1 on a real bench.
+    wait_scale: float = 1.0
 
 
 def _run_lot(job: LotJob, console: Console, write_truth: Callable[[Path], None] | None = None) -> int:
@@ -119,7 +122,7 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
     from station.cli.view_commands import live_view
     from station.config.plan import build_plan
     from station.lot.bench import open_bench
-    from station.lot.runner import LotRunner, LotSettings
+    from station.lot.runner import LotRunner, LotSettings, scaled_sleep
 
     live: list[LotProgress] = []   # the progress bar, once it runs: paused at every prompt
 
@@ -156,7 +159,8 @@ def _plan_and_run(job: LotJob, console: Console, write_truth: Callable[[Path], N
             runner = LotRunner(plan, bench, writer, settings, on_part=on_part,
                                resume=job.resume, tell=lambda text: _say(console, text, "yellow"),
                                way_out=page.way_out(stops.way_out),
-                               decide=lambda alarm, pause: ask_pause(alarm, pause, live, page.desk))
+                               decide=lambda alarm, pause: ask_pause(alarm, pause, live, page.desk),
+                               sleep=scaled_sleep(job.wait_scale))
             tally = runner.run()
         with signals_deferred():       # the end-of-lot files are written whole, in order
             if tally.stop_code != EXIT_SOFTWARE:
@@ -323,7 +327,8 @@ _SIM_KEYS = ("seed", "parts", "sites", "rf_ohm", "rs_ohm", "line_hz", "dmm_per_s
 @click.option("--limits", "limits_path", type=click.Path(path_type=Path), default=DEMO_LIMITS,
               help="Limit table [default: the demo product's].")
 @click.option("--speed", type=click.FloatRange(0.1, 1000), default=1.0, show_default=True,
-              help="Simulated time per wall time; above 1 runs the physics faster than real (for tests).")
+              help="Simulated time per wall time; above 1 runs the physics, and the station's waits, "
+                   "faster than real (for tests).")
 @click.option("--force", is_flag=True, help="Overwrite an existing datalog folder.")
 @click.option("--stdf", is_flag=True, help="Also write the lot as binary STDF V4 (lot.stdf).")
 @click.option("--inject-outliers", "outlier_share", type=click.FloatRange(0.0, 0.2), default=0.0,
@@ -402,7 +407,7 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
                       f"{settings.sites} site(s)" + (f", resumed after {settings.skip_parts} part(s)" if resume else ""))
         job = LotJob(bench_file, sequence_path, limits_path, out, lot_id, operator, "dry-run", force,
                      settings.parts, stdf, resume, max_faults, extra, seated=seat, pat_baseline=pat_baseline,
-                     view=view, store=store_url)
+                     view=view, store=store_url, wait_scale=settings.speed)
         try:
             code = _run_lot(job, console, write_truth=sim.write_truth)
         finally:

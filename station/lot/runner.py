@@ -38,6 +38,16 @@ __all__ = ["LotInterrupted", "LotRunner", "LotSettings", "LotStopped", "LotTally
 SOFTWARE_NAME = "ampscreen-station"
 
 
+def scaled_sleep(speed: float) -> Callable[[float], None]:
+    """The station's waits on a simulated bench running `speed` times faster than real time.
+
+    The station's clock stays wall time, so its hard bound on settling stays in wall time,
+    where its own overhead is; the physics it waits for runs in model time."""
+    if speed == 1:
+        return time.sleep
+    return lambda seconds: time.sleep(seconds / speed)
+
+
 class LotStopped(Stopped):
     """The bench stayed faulty for `max_faults` attempts in a row."""
 

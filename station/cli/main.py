@@ -484,6 +484,7 @@ def _read_bench_overrides(path: Path, settings) -> dict:
         settings.rb_ohm = config.bias.rb_ohm
     settings.dmm_per_site = config.dmm_per_site
     settings.fixture_kind = config.fixture_kinds or "servo_loop"
+    settings.generator = config.has_generator     # the simulated bench starts one where the config names it
     if config.diff_amp is not None:
         settings.diff_gain, settings.diff_tolerance = config.diff_amp.gain, config.diff_amp.tolerance
     return yaml.safe_load(path.read_text(encoding="utf-8"))

@@ -45,6 +45,12 @@ def minus_3db_frequency(frequencies_hz: Sequence[float], cmrr_db: Sequence[float
     return math.nan
 
 
+def label_frequency(label: str) -> float:
+    """The frequency (Hz) of a region name written by frequency_label ('1 kHz' -> 1000.0)."""
+    number, unit = str(label).split()
+    return float(number) * (1e3 if unit == "kHz" else 1.0)
+
+
 def frequency_label(frequency_hz: float) -> str:
     """The region name of a frequency point in the datalog and the limit table: '20 Hz', '1 kHz'."""
     if frequency_hz >= 1e3:

@@ -31,7 +31,12 @@ from station.config.files import ConfigError, load_yaml_file
 from station.config.rail_points import rails_for
 from station.config.step_spec import StepSpec
 from station.config.test_catalog import StepRows, StepTests
-from station.judge.ac_rejection import cmrr_ac_db, frequency_label, minus_3db_frequency
+from station.judge.ac_rejection import (
+    cmrr_ac_db,
+    frequency_label,
+    label_frequency,
+    minus_3db_frequency,
+)
 from station.kinds.base import KindContext, SiteWork, StepScreen, TestKind
 
 if TYPE_CHECKING:
@@ -174,7 +179,7 @@ def frequency_limit_problems(table: LimitTable, sequence: TestSequence) -> list[
             if limit.param == "cmrr_ac" and limit.region not in labels:
                 problems.append(doc.error([*path, "region"], f"grade {grade.name} cmrr_ac limit at "
                                           f"{limit.region!r}: the sequence sweeps no such frequency",
-                                          "region: one of " + ", ".join(sorted(labels, key=_label_hz))))
+                                          "region: one of " + ", ".join(sorted(labels, key=label_frequency))))
             if limit.param == "cmrr_ac_f3db":
                 for side in ("low", "high"):
                     value = getattr(limit, side)
@@ -186,7 +191,3 @@ def frequency_limit_problems(table: LimitTable, sequence: TestSequence) -> list[
                                                   "widen the sweep past the limit, or move the limit inside it"))
     return problems
 
-
-def _label_hz(label: str) -> float:
-    number, unit = label.split()
-    return float(number) * (1e3 if unit == "kHz" else 1.0)

@@ -373,6 +373,8 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         if resume.ended:
             sys.exit(_seal_ended_lot(resume, stdf, SimBench(settings).write_truth))
         user_bench = _bench_copy(resume_dir)
+        instruments = (user_bench or {}).get("instruments") or {}
+        settings.generator = settings.generator or (isinstance(instruments, dict) and "generator" in instruments)
         out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
     lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
     out = out or _default_out(lot_id)

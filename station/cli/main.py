@@ -378,6 +378,8 @@ def dry_run(ctx: click.Context, parts: int, sites: int, manual: bool, seed: int,
         if resume.ended:
             sys.exit(_seal_ended_lot(resume, stdf, SimBench(settings).write_truth))
         user_bench = _bench_copy(resume_dir)
+        instruments = (user_bench or {}).get("instruments") or {}
+        settings.generator = settings.generator or (isinstance(instruments, dict) and "generator" in instruments)
         out, lot_id = Path(resume_dir), str(resume.header["lot_id"])
     lot_id = lot_id or time.strftime("DEMO-%Y%m%d-%H%M%S")
     out = out or _default_out(lot_id)
@@ -489,6 +491,7 @@ def _read_bench_overrides(path: Path, settings) -> dict:
         settings.rb_ohm = config.bias.rb_ohm
     settings.dmm_per_site = config.dmm_per_site
     settings.fixture_kind = config.fixture_kinds or "servo_loop"
+    settings.generator = config.has_generator     # the simulated bench starts one where the config names it
     if config.diff_amp is not None:
         settings.diff_gain, settings.diff_tolerance = config.diff_amp.gain, config.diff_amp.tolerance
     return yaml.safe_load(path.read_text(encoding="utf-8"))

@@ -432,6 +432,10 @@ def _check_region(doc: YamlDocument, path: list[str | int], param: str, kind: st
         if region is None:
             raise doc.error(path, f"{param} needs a region", "add region: the application's name")
         return
+    if kind == "frequency":    # a frequency point: the plan checks it against the sequence's
+        if region is None:
+            raise doc.error(path, f"{param} needs a region", "add region: a frequency point, e.g. 1 kHz")
+        return
     allowed = [name for name, k in kinds.items() if k == kind]
     if kind == "slope":
         allowed.append(FULL_RANGE)

@@ -14,7 +14,8 @@ class ParameterInfo:
     name: str
     units: str          # units of RESULT in the datalog and of limits in tables
     region_kind: str | None  # None: no region; "slope": slope regions (+ "full"); "step": transition
-    #                          regions; "application": an application of the sequence's budget step
+    #                          regions; "application": an application of the sequence's budget step;
+#                          "frequency": a frequency point of the sequence's ac_cmrr step ("1 kHz")
     limitable: bool
     description: str
 
@@ -35,6 +36,10 @@ PARAMETERS: dict[str, ParameterInfo] = {p.name: p for p in [
     ParameterInfo("ios", "A", None, True, "input offset current Ib+ - Ib-"),
     ParameterInfo("cmrr_da", "dB", "slope", True,
                   "common-mode rejection of a region in the difference-amplifier fixture (its own term subtracted)"),
+    ParameterInfo("cmrr_ac", "dB", "frequency", True,
+                  "common-mode rejection at one frequency point, difference amplifier, 20 log10(G Vin / Vout)"),
+    ParameterInfo("cmrr_ac_f3db", "Hz", None, True,
+                  "frequency where CMRR has fallen 3 dB below its value at the lowest frequency point"),
     ParameterInfo("app_err", "V", "application", True, "application error budget, direct sum of its terms (RTI)"),
     ParameterInfo("app_err_rss", "V", "application", True, "application error budget, root sum of squares (RTI)"),
     # Informational rows: logged for offline analysis, never limited.
@@ -46,6 +51,7 @@ PARAMETERS: dict[str, ParameterInfo] = {p.name: p for p in [
     ParameterInfo("vos_rb", "V", None, False, "raw loop offset with Rb in series with none, one or both inputs"),
     ParameterInfo("cmrr_slope", "V/V", "slope", False, "signed least-squares slope dVos/dVcm of a region"),
     ParameterInfo("cmrr_da_slope", "V/V", "slope", False, "signed slope dVos/dVcm of a region, difference amplifier"),
+    ParameterInfo("vac_da", "V", "frequency", False, "raw AC amplitude (RMS) at the difference amplifier's output"),
     ParameterInfo("vos_da", "V", "point", False, "raw Vos at one drive level of the difference amplifier"),
     ParameterInfo("aol_slope", "V/V", None, False, "signed slope dVos/dVout"),
     ParameterInfo("psrr_slope", "V/V", None, False, "signed slope dVos/dVs"),

@@ -101,6 +101,11 @@ def build_plan(bench_path: Path, sequence_path: Path, limits_path: Path) -> Scre
         raise unresolved[0]
     applications = applications_of(sequence, Path(sequence_path))
     check_application_limits(table, applications)
+    from station.kinds.ac_cmrr import frequency_limit_problems
+
+    unsweepable = frequency_limit_problems(table, sequence)
+    if unsweepable:               # a limit no part of the sweep could be judged against
+        raise unsweepable[0]
     context = KindContext(sequence.span_v, table.regions, applications)
     for step in sequence.tests:
         kind_of(step).check(step, sequence, context)

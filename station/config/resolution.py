@@ -79,7 +79,10 @@ def slope_resolution(bench: BenchConfig, sequence: Sequence, table: LimitTable) 
 
 
 # The difference amplifier's rejection figures, and the kinds that measure them.
-DIFF_AMP_PARAMS = {"cmrr_da": "diff_cmrr"}
+DIFF_AMP_PARAMS = {"cmrr_da": "diff_cmrr", "cmrr_ac": "ac_cmrr"}
+# Read as magnitudes, AC figures cannot have a characterised slope subtracted: the fixture's
+# uncharacterised worst case is their resolution.
+UNSUBTRACTED = {"cmrr_ac"}
 
 
 def diff_amp_problems(bench: BenchConfig, sequence: Sequence, table: LimitTable) -> list[ConfigError]:
@@ -97,12 +100,18 @@ def diff_amp_problems(bench: BenchConfig, sequence: Sequence, table: LimitTable)
         for j, limit in enumerate(grade.limits):
             if DIFF_AMP_PARAMS.get(limit.param) not in kinds or limit.low is None:
                 continue
-            if limit.low > amp.resolution_db:
+            if limit.param in UNSUBTRACTED:
+                floor_db, floor_how = -20.0 * math.log10(amp.worst_slope), (
+                    f"(1 + G) / (4 t) at G = {amp.gain:g}, t = {amp.tolerance * 100:g} %; an AC magnitude "
+                    "has no characterised term subtracted")
+            else:
+                floor_db, floor_how = amp.resolution_db, how
+            if limit.low > floor_db:
                 what = f"grade {grade.name} {limit.param}" + (f" {limit.region}" if limit.region else "")
                 problems.append(doc.error(["grades", i, "limits", j, "low"],
                                           f"{what} limit {limit.low:g} dB is beyond what the difference amplifier "
-                                          f"resolves ({amp.resolution_db:.1f} dB, {how}; {where})",
-                                          f"lower the limit to {math.floor(amp.resolution_db * 10) / 10:g} dB or "
+                                          f"resolves ({floor_db:.1f} dB, {floor_how}; {where})",
+                                          f"lower the limit to {math.floor(floor_db * 10) / 10:g} dB or "
                                           "less, or characterise the fixture, or use tighter resistors or more gain"))
     return problems
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 from pydantic import AfterValidator
 
@@ -32,6 +32,9 @@ from station.config.rail_points import RailPoint, rails_for
 from station.config.step_spec import Nplc, SettleSpec, Span
 from station.kinds.registry import KINDS, kind_of
 from station.screen.lot_rules import Rule, read_lot_control
+
+if TYPE_CHECKING:
+    from station.kinds.ac_cmrr import AcSweep
 
 TEST_KINDS = tuple(KINDS)
 
@@ -83,6 +86,7 @@ class TestStep:
     spans_v: tuple[float, ...] = ()      # supply_rejection: supply spans
     applications: str | None = None      # budget: application file, relative to the sequence file
     predict: Approach | None = None      # bias_current: predicted settling after each relay change
+    ac: AcSweep | None = None            # ac_cmrr: frequency points and the sine on the tied inputs
     line: int | None = None              # line of the entry in the sequence file, for errors
 
     def point_vcms(self, span_v: float) -> tuple[float, ...]:

@@ -23,3 +23,8 @@ def demo_file(folder: str, name: str) -> Path:
 DEMO_LIMITS = demo_file("limits", "px401.yaml")
 DEMO_SEQUENCE = demo_file("sequences", "px401_screen.yaml")
 EXAMPLE_BENCH = demo_file("benches", "example-bench.yaml")
+# The second fixture: a difference-amplifier bench with a function generator, its AC CMRR
+# sequence and limit table (docs/fixtures.md).
+DIFFAMP_BENCH = demo_file("benches", "px401-diffamp-bench.yaml")
+AC_SEQUENCE = demo_file("sequences", "px401_ac_cmrr.yaml")
+AC_LIMITS = demo_file("limits", "px401_ac.yaml")

@@ -70,6 +70,20 @@ class StepScreen(Protocol):
 
     def set_rails(self, v_pos: float, v_neg: float) -> None: ...
 
+    def set_force(self, level: float) -> None: ...
+
+    def set_sine(self, frequency_hz: float, amplitude_vrms: float) -> None:
+        """The function generator's sine on the difference amplifier's tied inputs."""
+        ...
+
+    def generator_output(self, on: bool) -> None: ...
+
+    def read_ac(self, sites: list[int], range_v: float, frequency_hz: float, aperture_s: float,
+                samples: int) -> dict[int, float]:
+        """Per site, the AC amplitude (V RMS) at its measurement node, the mean of `samples`
+        readings through the DMM's AC filter for `frequency_hz`; +inf on overload."""
+        ...
+
     def sweep(self, step: TestStep, sites: list[int], conditions: list[Condition]) -> dict[int, list[float]]:
         """Per site, the input offset (V) at each condition, in the order given."""
         ...

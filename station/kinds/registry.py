@@ -9,6 +9,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from station.config.test_catalog import StepRows, StepTests
+from station.kinds.ac_cmrr import AcCmrr
 from station.kinds.base import KindContext, TestKind
 from station.kinds.bias_current import BiasCurrent
 from station.kinds.budget import ErrorBudget
@@ -32,6 +33,7 @@ KINDS: dict[str, TestKind] = {kind.name: kind for kind in (
     SupplyCurrent(),
     BiasCurrent(),
     DiffAmpCmrr(),
+    AcCmrr(),
     ErrorBudget(),
 )}
 

@@ -17,6 +17,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from drivers.errors import InstrumentError
+from drivers.generator import FunctionGenerator
 from station.config.bench_config import BenchConfig
 from station.config.limit_tables import LimitTable
 from station.config.plan import ScreenPlan
@@ -69,6 +70,7 @@ class IndexScreen:
         self._bias_moved_at = 0.0      # reader clock when the bias relays last moved (acknowledged)
         self._diff_sites: set[int] = set()  # sites switched to the difference amplifier
         self._diff_unsure = False      # after a fault: the switch-over relays may be in any state
+        self._generator_on = False     # the generator's output (off at rest; forced off after a fault)
 
     # --- what a kind sees (StepScreen) ---
     @property
@@ -92,6 +94,23 @@ class IndexScreen:
         if self._force != level:
             self.bench.force.set_level(level)
             self._force = level
+
+    def set_sine(self, frequency_hz: float, amplitude_vrms: float) -> None:
+        self._generator().set_sine(frequency_hz, amplitude_vrms)
+
+    def generator_output(self, on: bool) -> None:
+        if on != self._generator_on:
+            self._generator_on = on     # before the command: a failed OFF is retried on the way out
+            self._generator().output(on)
+
+    def _generator(self) -> FunctionGenerator:
+        if self.bench.generator is None:
+            raise ValueError("the bench has no function generator; the plan should have refused this")
+        return self.bench.generator
+
+    def read_ac(self, sites: list[int], range_v: float, frequency_hz: float, aperture_s: float,
+                samples: int) -> dict[int, float]:
+        return self.reader.read_ac(sites, range_v, frequency_hz, aperture_s, samples)
 
     def power_sites(self, sites: set[int]) -> None:
         self.bench.switch.power_sites(sites)
@@ -160,6 +179,7 @@ class IndexScreen:
         self._read_back = True
         self._bias_unsure = self.bench.config.bias is not None
         self._diff_unsure = bool(self.bench.config.switch_over_channels)
+        self._generator_on = self.bench.generator is not None   # unsure: switched off on the way out
         self.reader.forget_config()
 
     # --- one index ---
@@ -177,6 +197,9 @@ class IndexScreen:
                                 exc) for w in work]
         finally:
             try:
+                if self._generator_on and self.bench.generator is not None:   # no sine between parts
+                    self.bench.generator.output(False)
+                    self._generator_on = False
                 self.bench.switch.power_sites(set())  # parts are never handled powered
                 if self._bias or self._bias_unsure:   # the next index starts with Rb shunted
                     self.set_bias([], False, False)

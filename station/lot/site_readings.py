@@ -146,6 +146,20 @@ class SiteReader:
             weakref.finalize(self, self._pool.shutdown, wait=False)
         return self._pool
 
+    def read_ac(self, sites: list[int], range_v: float, frequency_hz: float, aperture_s: float,
+                samples: int) -> dict[int, float]:
+        """AC amplitude (V RMS at the node) per site: every DMM set to AC for `frequency_hz`
+        (its filter), then one group of `samples`; the next DC reading configures DC again."""
+        self._config = None
+        for dmm in self.dmms:
+            dmm.configure_ac(range_v, frequency_hz, aperture_s, samples)
+        self.stats.conditions += 1
+        start = self.clock()
+        values = {site: _ac_mean(v) for site, v in self._group(sites).items()}
+        self.stats.readings += 1
+        self.stats.settle_s += self.clock() - start
+        return values
+
     # --- one condition ---
     def read(self, sites: list[int], step: TestStep, settle: Settle | None = None) -> dict[int, float]:
         """Settle, then return the offset (V, referred to the input) of each site; inf = over-range."""
@@ -288,3 +302,8 @@ class SiteReader:
             if predicted_residual(last, ref, interval, settle.tail_s) <= tolerance:
                 return True
         return False
+
+
+def _ac_mean(values: list[float]) -> float:
+    """The mean of AC amplitudes; an overloaded sample (inf) makes the reading an overload."""
+    return math.inf if any(math.isinf(v) for v in values) else sum(values) / len(values)

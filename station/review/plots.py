@@ -13,6 +13,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
+from station.judge.ac_rejection import label_frequency  # noqa: E402
 from station.review.units import display_unit  # noqa: E402
 
 # Our own palette: slate bars, one distinct colour per grade, soft tints per region.
@@ -115,4 +116,27 @@ def vos_curves(curves: dict[int, tuple[np.ndarray, np.ndarray]], regions: dict[s
     ax.set_xlabel("VCM relative to the supply mid-point (V)")
     ax.set_ylabel("Vos (uV)")
     ax.set_title(title, pad=16)
+    return to_base64(fig)
+
+
+def cmrr_frequency_plot(curves: pd.DataFrame, limits: pd.DataFrame, title: str) -> str:
+    """CMRR(f) per grade on a log frequency axis: the median line and the 10-90 % band, and each
+    grade's cmrr_ac lower limits as triangles of its colour (curves: review/ac_curves.py)."""
+    fig, ax = _axes(7.5, 3.8)
+    ax.set_xscale("log")
+    grades = list(dict.fromkeys(curves["GRADE"].tolist()))
+    for i, grade in enumerate(grades):
+        colour = GRADE_COLOURS[i % len(GRADE_COLOURS)]
+        own = curves[curves["GRADE"] == grade].sort_values("FREQ_HZ")
+        parts = int(own["PARTS"].max()) if len(own) else 0
+        ax.fill_between(own["FREQ_HZ"], own["P10"], own["P90"], color=colour, alpha=0.15, linewidth=0)
+        ax.plot(own["FREQ_HZ"], own["P50"], color=colour, marker=".", label=f"grade {grade} median ({parts} parts)")
+        mine = limits[(limits["GRADE"].astype(str) == grade) & (limits["PARAM"] == "cmrr_ac")]
+        if len(mine):
+            ax.scatter([label_frequency(r) for r in mine["REGION"]], mine["LSL"], marker="^", color=colour,
+                       s=60, zorder=3, label=f"grade {grade} limit")
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel("CMRR (dB)")
+    ax.set_title(title, fontsize=10)
+    ax.legend(fontsize=7, loc="lower left")
     return to_base64(fig)

@@ -2,13 +2,14 @@
 
 Opens in any browser with no network and no other files: lot header, yield, bin Pareto,
 yield by site and by hour, a histogram per parameter and region with each grade's limits,
-and Vos-versus-common-mode curves of a sample of parts with the regions shaded.
+Vos-versus-common-mode curves of a sample of parts with the regions shaded, and CMRR versus
+frequency per grade with its limits where the lot measured it (ac_cmrr).
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -19,9 +20,18 @@ import pandas as pd
 from station import __version__
 from station.config.limit_tables import LimitTable
 from station.config.parameters import LIMITABLE
+from station.review.ac_curves import COLUMNS as AC_COLUMNS
+from station.review.ac_curves import cmrr_by_frequency
 from station.review.limits import limits_in_force
 from station.review.load import Datalogs
-from station.review.plots import histogram, histogram_bin_count, pareto_plot, vos_curves, yield_bars
+from station.review.plots import (
+    cmrr_frequency_plot,
+    histogram,
+    histogram_bin_count,
+    pareto_plot,
+    vos_curves,
+    yield_bars,
+)
 from station.review.summary import Summary, group_key, yield_by
 from station.review.units import display_unit, fmt, fmt_share
 
@@ -86,6 +96,10 @@ Dashed lines: limits of each grade. Cpk = min(USL - mu, mu - LSL) / (3 sigma).</
 
 <h2>Offset versus common mode</h2>
 {{ figure(curves) }}
+{% if ac_cmrr %}<h2>Common-mode rejection versus frequency</h2>
+<p class="note">Per grade: median CMRR at each frequency point and the band of the middle 80 % of parts;
+triangles: the grade's CMRR limits at their frequency.</p>
+{{ figure(ac_cmrr) }}{% endif %}
 {% for n in notes %}<p class="note">note: {{ n }}</p>{% endfor %}
 <p class="note">Generated {{ generated }} by ampscreen-station {{ version }} from {{ folders }}.</p>
 </main></body></html>
@@ -137,6 +151,8 @@ class ReportData:
     curves: dict[int, tuple[np.ndarray, np.ndarray]]                   # a sample of parts: VCM, Vos
     curve_parts: int                     # parts with a curve, of which `curves` is the sample
     regions: dict[str, tuple[float, float]]                            # name -> VCM range, shaded
+    # CMRR versus frequency per grade (review/ac_curves.py); empty where the lot has no ac_cmrr
+    ac_cmrr: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=AC_COLUMNS))
 
 
 def write_report(logs: Datalogs, summary: Summary, path: str | Path) -> Path:
@@ -160,7 +176,7 @@ def render_report(data: ReportData, summary: Summary, path: str | Path) -> Path:
         site_plot=("Yield by site", yield_bars(summary.sites, "site", "Yield by site")),
         hour_plot=("Yield by hour (UTC)", yield_bars(data.hour_table, "hour", "Yield by hour (UTC)")),
         stats=_stats_table(summary), cpk=_cpk_table(summary), histograms=_histograms(data, summary),
-        curves=_curves(data), notes=summary.notes + [f"limits for Cpk and plots: {summary.limits_source}"],
+        curves=_curves(data), ac_cmrr=_ac_cmrr(data), notes=summary.notes + [f"limits for Cpk and plots: {summary.limits_source}"],
         generated=datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC"), version=__version__,
         folders=data.source, figure=_figure)
     target = Path(path)
@@ -190,7 +206,8 @@ def folder_report_data(logs: Datalogs, summary: Summary) -> ReportData:
         lots=logs.lots, source=", ".join(str(f) for f in logs.folders),
         hour_table=yield_by(logs.parts, group_key(logs, "hour"), "hour", summary.grade_order),
         limits=limits, histograms=histograms, curves=curves, curve_parts=len(parts),
-        regions=region_ranges(table, logs.lots[0].get("span_v")))
+        regions=region_ranges(table, logs.lots[0].get("span_v")),
+        ac_cmrr=cmrr_by_frequency(results, logs.parts))
 
 
 def region_ranges(table: LimitTable | None, span: object) -> dict[str, tuple[float, float]]:
@@ -259,3 +276,10 @@ def _curves(data: ReportData) -> tuple[str, str] | None:
         return None
     title = f"Vos versus common mode, {len(data.curves)} of {data.curve_parts} parts"
     return title, vos_curves(data.curves, data.regions, title)
+
+
+def _ac_cmrr(data: ReportData) -> tuple[str, str] | None:
+    if data.ac_cmrr.empty:
+        return None
+    title = "CMRR versus frequency per grade (difference amplifier)"
+    return title, cmrr_frequency_plot(data.ac_cmrr, data.limits, title)

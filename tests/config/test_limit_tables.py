@@ -127,7 +127,7 @@ def test_unknown_parameter_lists_the_known_ones():
     text, message = error_for("{param: vos, low: -50 uV", "{param: voss, low: -50 uV")
     assert_names(message, text, "voss", "grades[0].limits[1].param")
     assert "'voss' is not a known parameter" in message
-    assert "aol, app_err, app_err_rss, cm_step, cmrr, cmrr_da, ib, ib_minus, ib_plus, ios, iq, psrr, vos, vos_worst" in message
+    assert "aol, app_err, app_err_rss, cm_step, cmrr, cmrr_ac, cmrr_ac_f3db, cmrr_da, ib, ib_minus, ib_plus, ios, iq, psrr, vos, vos_worst" in message
 
 
 def test_unlimitable_parameter():

@@ -337,10 +337,10 @@ def match_results_to_parts(result_parts: Sequence[Any], result_sites: Sequence[A
     if n_results == 0:
         return np.zeros(0, dtype=np.int64)
     n_parts = len(part_ids)
-    ids, _ = pd.factorize(pd.Series(np.concatenate([np.asarray(part_ids, dtype=object),
-                                                    np.asarray(result_parts, dtype=object)])))
-    sites, site_names = pd.factorize(pd.Series(np.concatenate([np.asarray(part_sites, dtype=object),
-                                                               np.asarray(result_sites, dtype=object)])))
+    # Series, not object arrays: a column of arrow strings factorises many times faster.
+    ids, _ = pd.factorize(pd.concat([pd.Series(part_ids), pd.Series(result_parts)], ignore_index=True))
+    sites, site_names = pd.factorize(pd.concat([pd.Series(part_sites), pd.Series(result_sites)],
+                                               ignore_index=True))
     keys = ids.astype(np.int64) * max(len(site_names), 1) + sites
     part_key, result_key = keys[:n_parts], keys[n_parts:]
     with_results = np.flatnonzero(np.asarray(part_has_results, dtype=bool))

@@ -7,12 +7,15 @@ tables with a DATALOG column (the folder's index) so that a shift of lots summar
 
 from __future__ import annotations
 
+import csv
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.csv as pa_csv
 
 from station.datalog.folder import (
     DatalogError,
@@ -137,45 +140,64 @@ def match_results_to_parts(results: pd.DataFrame, parts: pd.DataFrame) -> np.nda
     matching rule (station/datalog/folder.py: match_results_to_parts)."""
     if results.empty or parts.empty:
         return np.full(len(results), -1, dtype=np.int64)
-    position = match_rows(results["PART_ID"].to_numpy(), results["SITE_NUM"].to_numpy(),
-                          results["TEST_NUM"].to_numpy(), parts["PART_ID"].to_numpy(),
-                          parts["SITE_NUM"].to_numpy(), parts["PASS"].notna().to_numpy())
+    position = match_rows(results["PART_ID"], results["SITE_NUM"], results["TEST_NUM"].to_numpy(),
+                          parts["PART_ID"], parts["SITE_NUM"], parts["PASS"].notna().to_numpy())
     return np.where(position >= 0, parts["PART_SEQ"].to_numpy()[np.maximum(position, 0)], -1)
 
 
 def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]], version: int) -> pd.DataFrame:
-    """pandas' fast reader; when it objects, or a row is short, the format's row-by-row check
-    (station.datalog.folder.read_rows) names the file, line and column that are wrong. A
-    folder of an earlier format version gets the later columns, empty (NaN)."""
+    """pyarrow's multi-threaded reader; when it objects, or a cell that may not be empty is,
+    the format's row-by-row check (station.datalog.folder.read_rows) names the file, line and
+    column that are wrong. A folder of an earlier format version gets the later columns,
+    empty (NaN)."""
     if _torn(path):
         read_rows(path, version=version)   # raises: torn last line, with its line number
-    try:
-        header = pd.read_csv(path, nrows=0).columns
-    except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        raise DatalogError(f"{path}: cannot read: {exc}") from None
+    header = _header(path)
     wanted = columns_of(path.name, version)
     missing = [c for c in wanted if c not in header]
     if missing:
         raise DatalogError(f"{path}: columns missing: {', '.join(missing)} (see docs/datalog-format.md)")
-    if list(header) != wanted:        # another version's columns than lot.json names
+    if header != wanted:        # another version's columns than lot.json names
         read_rows(path, version=version)
+    types = {c: _ARROW_TYPES[str(t)] for c, t in dtypes.items() if c in wanted}
     try:
-        frame = pd.read_csv(path, dtype={c: t for c, t in dtypes.items() if c in wanted}, keep_default_na=False,
-                            na_values={c: v for c, v in empty.items() if c in wanted}, engine="c",
-                            low_memory=False)
-    except (ValueError, pd.errors.ParserError) as exc:
+        table = pa_csv.read_csv(path, convert_options=pa_csv.ConvertOptions(
+            column_types=types, null_values=[""], strings_can_be_null=False,
+            quoted_strings_can_be_null=False))
+    except (pa.ArrowInvalid, OSError) as exc:
         read_rows(path, version=version)   # raises with the row, if the row check sees it
         raise DatalogError(f"{path}: a value does not fit its column: {str(exc).splitlines()[0]}") from None
-    # A row with fields missing at its end reads as empty cells; the last column that may
-    # never be empty tells (RESULT in results.csv, RETEST in parts.csv).
-    required = "RESULT" if "RESULT" in dtypes else "RETEST"
-    if frame[required].isna().any():
+    # Empty means "none" only in the columns of `empty`; elsewhere an empty number is damage
+    # (a row cut short, or a cell lost), which the row check names with its line.
+    damaged = [c for c in wanted if c not in empty and table.column(c).null_count]
+    if damaged:
         read_rows(path, version=version)
-        raise DatalogError(f"{path}: a row has no {required} (the file is damaged)")
-    for column, dtype in dtypes.items():   # columns of a later version than the folder's
-        if column not in frame:
+        raise DatalogError(f"{path}: a row has no {damaged[0]} (the file is damaged)")
+    frame = table.to_pandas()
+    for column, dtype in dtypes.items():
+        if column not in frame:    # columns of a later version than the folder's
             frame[column] = pd.Series(np.nan, index=frame.index, dtype=dtype)
+        elif dtype == "category":  # sorted categories, as the rest of the review tools expect
+            frame[column] = frame[column].cat.reorder_categories(sorted(frame[column].cat.categories))
+        elif frame[column].dtype != dtype and dtype != "str":
+            frame[column] = frame[column].astype(dtype)
     return frame
+
+
+# The arrow type each pandas dtype of the tables is read as (dictionary: pandas' category).
+_ARROW_TYPES: dict[str, pa.DataType] = {
+    "category": pa.dictionary(pa.int32(), pa.string()), "str": pa.string(), "float64": pa.float64(),
+    "int8": pa.int8(), "int16": pa.int16(), "int32": pa.int32(),
+}
+
+
+def _header(path: Path) -> list[str]:
+    """The column names of a CSV file's first line."""
+    try:
+        with open(path, encoding="utf-8", newline="") as f:
+            return next(csv.reader(f), [])
+    except (OSError, UnicodeDecodeError) as exc:
+        raise DatalogError(f"{path}: cannot read: {exc}") from None
 
 
 def _torn(path: Path) -> bool:
@@ -203,3 +225,11 @@ def _concat_results(frames: list[pd.DataFrame]) -> pd.DataFrame:
 def computed_rows(results: pd.DataFrame) -> pd.DataFrame:
     """Result rows that are computed figures (raw sweep points left out)."""
     return results[~results["PARAM"].isin(RAW_PARAMS)]
+
+
+def text_codes(column: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """(integer code of each row, text of each code) of a text column; a missing value is the
+    text "nan", as str() gives it."""
+    if not isinstance(column.dtype, pd.CategoricalDtype) or column.isna().any():
+        column = column.astype(str).astype("category")
+    return column.cat.codes.to_numpy(), column.cat.categories.astype(str).to_numpy(dtype=object)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -26,6 +27,46 @@ def test_tables_match_the_csv_files(folder: Path) -> None:
     assert len(logs.results) == len(results)
     assert logs.parts["HARD_BIN"].tolist() == parts["HARD_BIN"].tolist()
     assert logs.results["RESULT"].to_numpy() == pytest.approx(results["RESULT"].to_numpy(), nan_ok=True)
+
+
+def test_every_cell_reads_as_pythons_own_parse_of_its_text(folder: Path) -> None:
+    """The multi-threaded reader against the row-by-row path: each number is Python's float()
+    or int() of the cell's text (correctly rounded, Python documentation), bit for bit; an empty
+    cell is NaN only where the format lets it be empty; text stays text ("" stays "")."""
+    from station.datalog.folder import read_rows
+    from station.review.load import _PART_EMPTY, _RESULT_EMPTY, PART_DTYPES, RESULT_DTYPES
+
+    logs = load_datalogs([folder])
+    for name, table, dtypes, empty in (("parts.csv", logs.parts, PART_DTYPES, _PART_EMPTY),
+                                       ("results.csv", logs.results, RESULT_DTYPES, _RESULT_EMPTY)):
+        rows, _ = read_rows(folder / name)
+        header = pd.read_csv(folder / name, nrows=0).columns.tolist()
+        for index, column in enumerate(header):
+            cells = [row[index] for row in rows]
+            read = table[column].tolist()
+            if dtypes[column] == "float64":
+                expected = [float(c) if c or column not in empty else float("nan") for c in cells]
+                assert np.array_equal(np.array(read), np.array(expected), equal_nan=True), column
+            elif str(dtypes[column]).startswith("int"):
+                assert read == [int(c) for c in cells], column
+            else:
+                assert [str(v) for v in read] == cells, column
+
+
+def test_an_empty_number_where_the_format_forbids_it_is_named_with_its_line(folder: Path, tmp_path: Path) -> None:
+    copy = tmp_path / "emptied"
+    copy.mkdir()
+    for name in ("lot.json", "parts.csv", "results.csv"):
+        (copy / name).write_bytes((folder / name).read_bytes())
+    lines = (copy / "results.csv").read_text().splitlines(keepends=True)
+    header = lines[0].strip().split(",")
+    cells = lines[5].rstrip("\n").split(",")
+    cells[header.index("TEST_NUM")] = ""
+    lines[5] = ",".join(cells) + "\n"
+    (copy / "results.csv").write_text("".join(lines))
+    with pytest.raises(DatalogError) as caught:
+        load_datalogs([copy])
+    assert "results.csv:6: TEST_NUM" in str(caught.value)
 
 
 def test_every_result_row_maps_to_its_part_row_even_for_retests(folder: Path) -> None:

@@ -67,12 +67,11 @@ class LoopDmm:
         range_part = (f":CONF:VOLT:DC {scpi_number(range_v)}" if range_v is not None
                       else ":CONF:VOLT:DC;:VOLT:DC:RANG:AUTO ON")
         # One message with its *OPC?: a failure re-sends the whole configuration.
-        self.link.write_and_wait(f"SYST:LFR {int(self.line_hz)};{range_part};"
-                                 f":VOLT:DC:NPLC {scpi_number(nplc)};"
-                                 f":ZERO:AUTO {'ON' if autozero else 'OFF'};:SAMP:COUN {samples}")
+        self.link.write_and_check(f"SYST:LFR {int(self.line_hz)};{range_part};"
+                                  f":VOLT:DC:NPLC {scpi_number(nplc)};"
+                                  f":ZERO:AUTO {'ON' if autozero else 'OFF'};:SAMP:COUN {samples}")
         self.nplc, self.range_v, self.autozero, self.samples = nplc, range_v, autozero, samples
         self.function = "DC"
-        self.link.check_errors()
 
     def configure_ac(self, range_v: float, lowest_hz: float, aperture_s: float, samples: int = 1) -> None:
         """AC volts (RMS at the generator's frequency): range, the lowest frequency to pass (it
@@ -84,11 +83,10 @@ class LoopDmm:
         aperture_s = require_within(self.role, "AC aperture", aperture_s, *AC_APERTURE_S, "s", "instrument range")
         if isinstance(samples, bool) or not isinstance(samples, int) or not 1 <= samples <= SAMPLES_MAX:
             raise RequestRefused(self.role, "sample count", samples, f"1 to {SAMPLES_MAX}")
-        self.link.write_and_wait(f":CONF:VOLT:AC {scpi_number(range_v)};:VOLT:AC:BAND {scpi_number(lowest_hz)};"
-                                 f":VOLT:AC:APER {scpi_number(aperture_s)};:SAMP:COUN {samples}")
+        self.link.write_and_check(f":CONF:VOLT:AC {scpi_number(range_v)};:VOLT:AC:BAND {scpi_number(lowest_hz)};"
+                                  f":VOLT:AC:APER {scpi_number(aperture_s)};:SAMP:COUN {samples}")
         self.function, self.range_v, self.samples = "AC", float(range_v), samples
         self.ac_lowest_hz, self.ac_aperture_s = lowest_hz, aperture_s
-        self.link.check_errors()
 
     @property
     def integration_time_s(self) -> float:

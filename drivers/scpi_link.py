@@ -171,6 +171,39 @@ class ScpiLink:
 
         self._ask(full, None, check, True)
 
+    def write_and_check(self, command: str) -> None:
+        """`write_and_wait` and `check_errors` in one round trip: the setting, ``*OPC?`` and the
+        first error-queue entry in one message (IEEE 488.2 joins the two replies with ";").
+        The rest of the queue is read only when that entry is an error.
+
+        A failure sends the message again as a whole: an entry its lost reply took off the
+        queue comes back with the resend, because the same setting raises the same error.
+        A command error (-1xx) ends the message there (IEEE 488.2), so its queries never
+        answer: a timeout, as with `write_and_wait`.
+        """
+        full = f"{command};*OPC?;:SYST:ERR?"
+
+        def parse(reply: str) -> tuple[int, str]:
+            done, _, entry = reply.partition(";")
+            if done.strip() != "1":
+                raise InstrumentBadReply(self.role, self.resource, full,
+                                         f"returned {_shorten(reply)!r} where '1;<error entry>' was expected")
+            try:
+                return parse_error_entry(entry)
+            except ValueError:
+                raise InstrumentBadReply(self.role, self.resource, full,
+                                         f"returned {_shorten(reply)!r}, not '1;code,\"message\"'") from None
+
+        first = self._ask(full, None, parse, True)
+        self._last_command = command
+        if first[0] == 0:
+            return
+        try:
+            self.check_errors()
+        except InstrumentReportedError as rest:
+            raise InstrumentReportedError(self.role, self.resource, command, [first, *rest.errors]) from None
+        raise InstrumentReportedError(self.role, self.resource, command, [first])
+
     def query(self, command: str, timeout_s: float | None = None, retry: bool = True) -> str:
         """Send a query and return its reply without the terminator."""
         return self._ask(command, timeout_s, lambda reply: reply, retry)

@@ -85,6 +85,23 @@ def test_unknown_command_reports_113(bench):
     link.check_errors()   # the queue is empty again
 
 
+def test_a_setting_and_its_error_check_share_one_round_trip(bench):
+    link = bench.dmms[0].link
+    before = link.transactions
+    bench.dmms[0].configure(nplc=1, range_v=1.0, autozero=True, samples=2)
+    assert link.transactions == before + 1       # setting, *OPC? and SYST:ERR? in one message
+    assert link.query_float("SYST:ERR:COUN?") == 0
+    # Two execution errors in one message: the first comes with the reply, the rest are read
+    # after it, and the queue is left empty (-222 data out of range, SCPI-1999 vol. 2, 21.8,
+    # from memory; the supply spans +-15 V per docs/bench-commands.md).
+    supply = bench.supply.link
+    with pytest.raises(InstrumentReportedError) as caught:
+        supply.write_and_check("INST:NSEL 1;:VOLT 20;:VOLT 30")
+    assert caught.value.codes == [-222, -222]
+    assert caught.value.command == "INST:NSEL 1;:VOLT 20;:VOLT 30"
+    assert supply.query_float("SYST:ERR:COUN?") == 0
+
+
 def test_out_of_range_raw_gives_222_but_driver_refuses_first(bench, sim):
     link = bench.supply.link
     link.write("INST:NSEL 1;:VOLT 20")

@@ -92,7 +92,8 @@ def budget_distribution(budgets: pd.DataFrame) -> pd.DataFrame:
 
 def logged_budgets(results: pd.DataFrame) -> pd.DataFrame:
     """The budget rows a lot logged (its sequence's budget test), as `datalog_budgets` gives them."""
-    rows = results[results["PARAM"].isin(BUDGET_PARAMS)]
+    keyed = results[["PART_ID", "SITE_NUM", "REGION", "PARAM", "RESULT"]]   # not every column: a million rows
+    rows = keyed[keyed["PARAM"].isin(BUDGET_PARAMS)]
     if rows.empty:
         return pd.DataFrame(columns=["PART_ID", "SITE_NUM", "application", *BUDGET_PARAMS])
     # Integer keys: de-duplicating and pivoting a third of a million rows of text is slow.

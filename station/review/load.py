@@ -161,7 +161,10 @@ def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]
         read_rows(path, version=version)
     types = {c: _ARROW_TYPES[str(t)] for c, t in dtypes.items() if c in wanted}
     try:
-        table = pa_csv.read_csv(path, convert_options=pa_csv.ConvertOptions(
+        # 4 MB blocks (pyarrow's default is 1 MB): a few dozen chunks per million rows, which
+        # become pandas columns several times faster than a hundred.
+        table = pa_csv.read_csv(path, read_options=pa_csv.ReadOptions(block_size=1 << 22),
+                                convert_options=pa_csv.ConvertOptions(
             column_types=types, null_values=[""], strings_can_be_null=False,
             quoted_strings_can_be_null=False))
     except (pa.ArrowInvalid, OSError) as exc:
@@ -173,7 +176,10 @@ def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]
     if damaged:
         read_rows(path, version=version)
         raise DatalogError(f"{path}: a row has no {damaged[0]} (the file is damaged)")
-    frame = table.to_pandas()
+    # One block per column, the arrow buffers released as they convert: less copying and a
+    # lower peak.
+    frame = table.to_pandas(split_blocks=True, self_destruct=True)
+    del table
     for column, dtype in dtypes.items():
         if column not in frame:    # columns of a later version than the folder's
             frame[column] = pd.Series(np.nan, index=frame.index, dtype=dtype)

@@ -85,7 +85,6 @@ def run_lot(settings: SimSettings, sequence: Path, limits: Path, out: Path,
             cpu_s = time.process_time() - cpu_start
             elapsed = time.monotonic() - start
             transactions = sum(link.transactions for link in bench.all_links().values())
-            runner.reader.close()
         finally:
             bench.close()
         if tally.stopped_because:

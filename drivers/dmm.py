@@ -2,17 +2,19 @@
 
 Reads can take long (100 NPLC at 50 Hz is 2 s per sample, doubled by autozero), so every
 query that waits for readings extends its timeout by the expected integration time.
-`start()` then `fetch()` lets several DMMs integrate at the same time.
+`read_together` (or `start()` then `fetch()`) lets several DMMs integrate at the same time.
 """
 
 from __future__ import annotations
 
 import math
+import time
+from collections.abc import Callable, Sequence
 
-from drivers.errors import RequestRefused
+from drivers.errors import InstrumentBadReply, InstrumentError, RequestRefused
 from drivers.range_checks import require_within
 from drivers.retry import RETRYABLE
-from drivers.scpi_link import ScpiLink
+from drivers.scpi_link import ScpiLink, query_together
 from drivers.scpi_values import scpi_number
 
 RANGES_V = (0.1, 1.0, 10.0, 100.0, 1000.0)
@@ -107,15 +109,26 @@ class LoopDmm:
     def read_count(self, samples: int) -> list[float]:
         """Trigger `samples` samples and read them; a new count is set in the same message
         (`SAMP:COUN n;:READ?`, one round trip) and stays for later reads."""
+        command, wait = self.read_query(samples)
+        values = self.link.query_floats(command, timeout_s=wait, unit="V")
+        self.samples = samples
+        return values
+
+    def read_query(self, samples: int) -> tuple[str, float]:
+        """The query that triggers and reads `samples` samples (setting the count only when it
+        changes), and its timeout: the link's plus the integration of those samples."""
         if isinstance(samples, bool) or not isinstance(samples, int) or not 1 <= samples <= SAMPLES_MAX:
             raise RequestRefused(self.role, "sample count", samples, f"1 to {SAMPLES_MAX}")
         if samples == self.samples:
-            return self.read_samples()
+            return "READ?", self._wait_s()
         per_sample = self.integration_time_s / self.samples
-        values = self.link.query_floats(f"SAMP:COUN {samples};:READ?",
-                                        timeout_s=self.link.timeout_s + per_sample * samples, unit="V")
-        self.samples = samples
-        return values
+        return f"SAMP:COUN {samples};:READ?", self.link.timeout_s + per_sample * samples
+
+    @staticmethod
+    def read_together(dmms: Sequence[LoopDmm], samples: Sequence[int],
+                      clock: Callable[[], float] = time.monotonic) -> list[tuple[float, list[float]]]:
+        """Several DMMs read at once: see `read_together` of this module."""
+        return read_together(dmms, samples, clock)
 
     def start(self) -> None:
         """INIT: start integrating now; collect with fetch()."""
@@ -136,6 +149,42 @@ class LoopDmm:
 
     def _wait_s(self) -> float:
         return self.link.timeout_s + self.integration_time_s
+
+
+def read_together(dmms: Sequence[LoopDmm], samples: Sequence[int],
+                  clock: Callable[[], float] = time.monotonic) -> list[tuple[float, list[float]]]:
+    """`samples[i]` samples from each DMM (each on its own link), all triggered before any is
+    read (drivers.scpi_link.query_together), so they integrate at the same time; per DMM,
+    (clock time its query was sent, its samples). A DMM whose query failed is asked again
+    alone under its link's retry policy, the failed try counting as the first."""
+    queries = [dmm.read_query(count) for dmm, count in zip(dmms, samples, strict=True)]
+    replies = query_together([(dmm.link, command, wait) for dmm, (command, wait) in zip(dmms, queries, strict=True)],
+                             clock)
+    out = []
+    for dmm, count, (command, wait), (sent, reply) in zip(dmms, samples, queries, replies, strict=True):
+        out.append((sent, _samples_of(dmm.link, command, wait, reply)))
+        dmm.samples = count
+    return out
+
+
+def _samples_of(link: ScpiLink, command: str, wait: float, reply: str | InstrumentError) -> list[float]:
+    """The readings of a pipelined reply; a failed one goes through the link's retry policy,
+    its failure replayed as the policy's first try."""
+    failed: list[InstrumentError] = []
+    if isinstance(reply, InstrumentError):
+        failed.append(reply)
+    else:
+        try:
+            return link.parse_floats(command, reply, "V")
+        except InstrumentBadReply as exc:
+            failed.append(exc)
+
+    def attempt() -> list[float]:
+        if failed:
+            raise failed.pop()
+        return link.query_floats(command, timeout_s=wait, retry=False, unit="V")
+
+    return link.with_retry(attempt)
 
 
 def _mean(values: list[float]) -> float:

@@ -12,8 +12,9 @@ import math
 import select
 import socket
 import threading
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+import time
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import ExitStack, contextmanager
 from typing import Any, TypeVar
 
 import pyvisa
@@ -240,6 +241,14 @@ class ScpiLink:
 
         return self._ask(command, timeout_s, one, retry)
 
+    def parse_floats(self, command: str, reply: str, unit: str | None = None) -> list[float]:
+        """The numbers of a comma-separated reply to `command`; InstrumentBadReply if it is not."""
+        return self._floats(command, reply, unit)
+
+    def with_retry(self, action: Callable[[], T]) -> T:
+        """Run `action` (transactions of this link) under the link's retry policy."""
+        return self._with_retry(action, True)
+
     def _floats(self, command: str, reply: str, unit: str | None = None) -> list[float]:
         try:
             return [parse_scpi_float(part, unit) for part in reply.split(",")]
@@ -287,14 +296,47 @@ class ScpiLink:
             self._last_command = command
         return reply.strip()
 
+    def _send(self, command: str, wait_s: float) -> Any:
+        """The write half of a query (the caller holds the lock); the instrument it went out on."""
+        instrument = self._prepare(command)
+        try:
+            with self._timeout(instrument, wait_s):
+                instrument.write(command)
+        except BaseException as exc:
+            self._stale = True
+            self.transactions += 1
+            if not isinstance(exc, Exception):
+                raise
+            raise self._translate(exc, command, wait_s) from exc
+        return instrument
+
+    def _receive(self, instrument: Any, command: str, wait_s: float) -> str | InstrumentError:
+        """The read half of a query sent with `_send` (the caller holds the lock)."""
+        try:
+            with self._timeout(instrument, wait_s):
+                reply = instrument.read()
+        except BaseException as exc:
+            self._stale = True
+            if not isinstance(exc, Exception):
+                raise
+            return self._translate(exc, command, wait_s)
+        finally:
+            self.transactions += 1
+        self._last_command = command
+        return reply.strip()
+
     def check_errors(self) -> None:
         """Read SYST:ERR? until it is empty; InstrumentReportedError lists what was queued."""
-        blamed = self._last_command
+        self._drain_errors(self._last_command, self._read_error_entry())
+
+    def _drain_errors(self, blamed: str | None, reply: str) -> None:
+        """The rest of `check_errors`, from the reply of its first SYST:ERR? read."""
         found: list[tuple[int, str]] = []
-        for _ in range(_MAX_ERROR_READS):
-            # Each read takes an entry off the queue, so a read is never resent: a lost reply
-            # may have carried an error, and the caller must treat the queue as not clean.
-            reply = self._read_error_entry()
+        for read in range(_MAX_ERROR_READS):
+            if read:
+                # Each read takes an entry off the queue, so a read is never resent: a lost
+                # reply may have carried an error, and the caller must treat the queue as not clean.
+                reply = self._read_error_entry()
             try:
                 code, message = parse_error_entry(reply)
             except ValueError:
@@ -309,6 +351,19 @@ class ScpiLink:
         self._last_command = blamed
         if found:
             raise InstrumentReportedError(self.role, self.resource, blamed, found)
+
+    def _drain_errors_after(self, blamed: str | None, reply: str | InstrumentError) -> None:
+        """`check_errors` whose first read went out with `query_together`."""
+        if isinstance(reply, InstrumentNotSent):     # nothing was taken off the queue
+            self._last_command = blamed
+            self.check_errors()
+            return
+        if isinstance(reply, RETRYABLE):
+            raise InstrumentBadReply(self.role, self.resource, "SYST:ERR?",
+                                     f"could not be read ({reply.detail}); an error entry may be lost") from reply
+        if isinstance(reply, InstrumentError):
+            raise reply
+        self._drain_errors(blamed, reply)
 
     def _read_error_entry(self) -> str:
         # A read that never went out (the link was found closed) lost nothing: reconnect and
@@ -431,6 +486,60 @@ class ScpiLink:
             return InstrumentBadReply(self.role, self.resource, command,
                                       "returned bytes that are not text (garbled reply)")
         return InstrumentError(self.role, self.resource, command, f"failed: {exc!r}")
+
+
+def query_together(requests: Sequence[tuple[ScpiLink, str, float]],
+                   clock: Callable[[], float] = time.monotonic) -> list[tuple[float, str | InstrumentError]]:
+    """Send each query (link, command, timeout) on its own link, then read the replies in the
+    same order: the instruments work at once (each DMM integrates while the next is
+    triggered) with no thread per instrument. Each result is (clock time the query was sent,
+    reply) or, where the send or the read failed, (time, the InstrumentError): that link is
+    marked out of step as after any failed query, and the caller resends the query alone
+    (`ScpiLink.query` and its retry policy). The links must be distinct."""
+    links = [link for link, _, _ in requests]
+    if len(set(map(id, links))) != len(links):
+        raise ValueError("query_together needs one query per link")
+    results: list[tuple[float, str | InstrumentError]] = []
+    sent: list[Any] = []          # the instrument each query went out on, or None
+    with ExitStack() as locks:
+        for link in links:        # always in the callers' order; others take one lock at a time
+            locks.enter_context(link._lock)
+        try:
+            for link, command, wait in requests:
+                at = clock()
+                try:
+                    sent.append(link._send(command, wait))
+                    results.append((at, ""))
+                except InstrumentError as exc:
+                    sent.append(None)
+                    results.append((at, exc))
+            for index, (link, command, wait) in enumerate(requests):
+                instrument, sent[index] = sent[index], None
+                if instrument is not None:
+                    results[index] = (results[index][0], link._receive(instrument, command, wait))
+        except BaseException:
+            # Ctrl-C between a send and its read: those replies will still come.
+            for link, instrument in zip(links, sent, strict=False):
+                if instrument is not None:
+                    link._stale = True
+            raise
+    return results
+
+
+def check_errors_together(links: Sequence[ScpiLink]) -> None:
+    """`check_errors` of several links, their first SYST:ERR? reads sent at once (one round
+    trip for all while the queues are empty, as they are after a clean index). Every link
+    is read to the end; the first InstrumentError found is raised after that."""
+    blamed = [link._last_command for link in links]
+    replies = query_together([(link, "SYST:ERR?", link.timeout_s) for link in links])
+    problem: InstrumentError | None = None
+    for link, culprit, (_, reply) in zip(links, blamed, replies, strict=True):
+        try:
+            link._drain_errors_after(culprit, reply)
+        except InstrumentError as exc:
+            problem = problem or exc
+    if problem is not None:
+        raise problem
 
 
 def terminations(resource: str) -> tuple[str, str | None]:

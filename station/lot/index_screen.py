@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 from drivers.errors import InstrumentError
 from drivers.generator import FunctionGenerator
+from drivers.scpi_link import check_errors_together
 from station.config.bench_config import BenchConfig
 from station.config.limit_tables import LimitTable
 from station.config.plan import ScreenPlan
@@ -210,8 +211,7 @@ class IndexScreen:
         return [self._grade(w) for w in work]
 
     def _check_error_queues(self) -> None:
-        for link in self.bench.all_links().values():
-            link.check_errors()
+        check_errors_together(list(self.bench.all_links().values()))
 
     def _run_tests(self, work: list[SiteWork]) -> None:
         seq = self.plan.sequence

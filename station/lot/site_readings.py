@@ -1,8 +1,8 @@
 """Loop readings of every live site at one bench condition, after settling.
 
 The sequencer changes a source, then asks for the offsets of the live sites here. With one
-DMM per site, the DMMs integrate at the same time: one READ? per DMM, each on a worker
-thread, so the integrations overlap and no reply waits behind another instrument's. With a
+DMM per site, the DMMs integrate at the same time: a READ? goes to every DMM before any reply
+is read (drivers/dmm.read_together), so the integrations overlap with no thread per DMM. With a
 single DMM behind the scanner, the sites are read one after another (while one is read,
 the others go on settling).
 
@@ -19,9 +19,7 @@ from __future__ import annotations
 
 import math
 import time
-import weakref
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 from drivers.dmm import LoopDmm
@@ -80,7 +78,6 @@ class SiteReader:
     stats: ReadingStats = field(default_factory=ReadingStats)
     noise_rti: dict[float, float] = field(default_factory=dict)  # NPLC -> RMS of one sample, V RTI
     _config: tuple[float, int] | None = None
-    _pool: ThreadPoolExecutor | None = None
 
     def configure(self, nplc: float, samples: int) -> None:
         """Configure every DMM for this integration time, only when it changes (saves round trips)."""
@@ -98,11 +95,6 @@ class SiteReader:
     def _group_time_s(self) -> float:
         return self.dmms[0].integration_time_s
 
-    def close(self) -> None:
-        if self._pool is not None:
-            self._pool.shutdown(wait=False)
-            self._pool = None
-
     # --- reading groups ---
     def _group(self, sites: list[int]) -> dict[int, list[float]]:
         """One reading group (SAMPle:COUNt samples) per site, in volts at the loop node."""
@@ -114,37 +106,26 @@ class SiteReader:
                 self.switch.route_to_dmm(site)
                 values[site] = self.dmms[0].read_samples()
             return values
-        if len(sites) == 1:
-            return {sites[0]: self.dmms[sites[0] - 1].read_samples()}
-        pool = self._workers()
-        futures = {site: pool.submit(self.dmms[site - 1].read_samples) for site in sites}
-        return {site: future.result() for site, future in futures.items()}
+        dmms = [self.dmms[site - 1] for site in sites]
+        read = dmms[0].read_together(dmms, [dmm.samples for dmm in dmms], self.clock)
+        return {site: values for site, (_, values) in zip(sites, read, strict=True)}
 
     def _group_of(self, sites: list[int], count: int) -> dict[int, tuple[float, list[float]]]:
         """`count` samples per site (the count set with the trigger), with the time each
         site's query was sent; per-site DMMs read at once, one DMM site after site."""
-        def one(site: int) -> tuple[float, list[float]]:
-            if not self.dmm_per_site:
-                assert self.switch is not None
-                self.switch.route_to_dmm(site)
-            sent = self.clock()
-            return sent, self.dmms[site - 1 if self.dmm_per_site else 0].read_count(count)
-
-        if not self.dmm_per_site or len(sites) == 1:
-            values = {site: one(site) for site in sites}
+        if self.dmm_per_site:
+            dmms = [self.dmms[site - 1] for site in sites]
+            read = dmms[0].read_together(dmms, [count] * len(sites), self.clock)
+            values = dict(zip(sites, read, strict=True))
         else:
-            pool = self._workers()
-            futures = {site: pool.submit(one, site) for site in sites}
-            values = {site: future.result() for site, future in futures.items()}
+            assert self.switch is not None
+            values = {}
+            for site in sites:
+                self.switch.route_to_dmm(site)
+                values[site] = (self.clock(), self.dmms[0].read_count(count))
         if self._config is not None:
             self._config = (self._config[0], count)
         return values
-
-    def _workers(self) -> ThreadPoolExecutor:
-        if self._pool is None:
-            self._pool = ThreadPoolExecutor(max_workers=len(self.dmms), thread_name_prefix="dmm-read")
-            weakref.finalize(self, self._pool.shutdown, wait=False)
-        return self._pool
 
     def read_ac(self, sites: list[int], range_v: float, frequency_hz: float, aperture_s: float,
                 samples: int) -> dict[int, float]:

@@ -8,6 +8,7 @@ from collections.abc import Iterator
 
 import pytest
 
+from drivers.dmm import LoopDmm
 from drivers.errors import (
     InstrumentBadReply,
     InstrumentConnectionLost,
@@ -18,6 +19,7 @@ from drivers.errors import (
 )
 from drivers.handler import ScpiHandler
 from drivers.retry import NO_RETRY
+from drivers.scpi_link import check_errors_together
 from station.config.bench_config import BenchConfig, parse_bench_config
 from station.lot.bench import Bench, open_bench
 
@@ -100,6 +102,20 @@ def test_a_setting_and_its_error_check_share_one_round_trip(bench):
     assert caught.value.codes == [-222, -222]
     assert caught.value.command == "INST:NSEL 1;:VOLT 20;:VOLT 30"
     assert supply.query_float("SYST:ERR:COUN?") == 0
+
+
+def test_error_queues_of_every_link_are_read_together_and_to_their_end(bench):
+    links = list(bench.all_links().values())
+    before = [link.transactions for link in links]
+    check_errors_together(links)                    # clean queues: one SYST:ERR? each
+    assert [link.transactions for link in links] == [n + 1 for n in before]
+    bench.supply.link.write("INST:NSEL 1;:VOLT 20;:VOLT 30")    # -222 twice
+    bench.dmms[0].link.write("FROB 1")                          # -113
+    with pytest.raises(InstrumentReportedError) as caught:
+        check_errors_together(links)
+    assert caught.value.role == "supply" and caught.value.codes == [-222, -222]
+    assert caught.value.command == "INST:NSEL 1;:VOLT 20;:VOLT 30"   # blamed on the last command
+    assert all(link.query_float("SYST:ERR:COUN?") == 0 for link in links)
 
 
 def test_out_of_range_raw_gives_222_but_driver_refuses_first(bench, sim):
@@ -185,6 +201,44 @@ def test_two_dmms_integrate_at_once(bench):
     assert [len(r) for r in results] == [2, 2]
     assert one > 0.05                                      # integration really takes time
     assert both < 1.6 * one                                # concurrent, not one after the other
+
+
+def _recording(call, name: str, role: str, events: list):
+    def recorded(*args, **kwargs):
+        events.append((name, role))
+        return call(*args, **kwargs)
+    return recorded
+
+
+def test_dmms_read_together_are_all_triggered_before_any_reply_is_read(bench, monkeypatch):
+    events: list[tuple[str, str]] = []
+    for dmm in bench.dmms:
+        dmm.configure(nplc=1, range_v=1.0, autozero=False, samples=1)
+        instrument = dmm.link._instrument
+        for name in ("write", "read"):
+            monkeypatch.setattr(instrument, name, _recording(getattr(instrument, name), name, dmm.role, events))
+    read = LoopDmm.read_together(bench.dmms, [3, 3])
+    assert events == [("write", "dmm1"), ("write", "dmm2"), ("read", "dmm1"), ("read", "dmm2")]
+    assert [len(values) for _, values in read] == [3, 3]
+    assert [dmm.samples for dmm in bench.dmms] == [3, 3]    # the new count stays set
+    assert read[0][0] <= read[1][0]                         # the time each query went out
+
+
+def test_a_garbled_reply_among_dmms_read_together_is_asked_again_alone(bench, sim):
+    dmm1, dmm2 = bench.dmms
+    for dmm in bench.dmms:
+        dmm.configure(nplc=1, range_v=1.0, autozero=False, samples=2)
+    before = (dmm1.link.transactions, dmm2.link.transactions, dmm2.link.retries)
+    sim.faults("dmm2").garbage_next = 1
+    read = LoopDmm.read_together(bench.dmms, [2, 2])
+    assert [len(values) for _, values in read] == [2, 2]     # (overload readings: no part is powered)
+    assert dmm1.link.transactions == before[0] + 1
+    assert dmm2.link.transactions >= before[1] + 2 and dmm2.link.retries == before[2] + 1
+    dmm2.link.retry = NO_RETRY                 # no retry: the failure is raised, named
+    sim.faults("dmm2").garbage_next = 1
+    with pytest.raises(InstrumentBadReply) as caught:
+        LoopDmm.read_together(bench.dmms, [2, 2])
+    assert caught.value.role == "dmm2"
 
 
 def test_read_timeout_is_extended_by_integration_time(bench):

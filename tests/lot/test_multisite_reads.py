@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import math
 import threading
-import time
 
 import numpy as np
 import pytest
@@ -54,6 +53,19 @@ class FakeDmm:
 
     def restart(self) -> None:
         self.started = self.clock()
+
+    @staticmethod
+    def read_together(dmms, samples, clock) -> list:
+        """Every DMM integrates over the same window (as LoopDmm.read_together's do): each
+        reads from the same start, and the clock ends where the longest one ends."""
+        start, end, out = clock.t, clock.t, []
+        for dmm, count in zip(dmms, samples, strict=True):
+            clock.t = start
+            dmm.samples = count
+            out.append((start, dmm.read_samples()))
+            end = max(end, clock.t)
+        clock.t = end
+        return out
 
     def read_samples(self) -> list[float]:
         values = []
@@ -126,33 +138,16 @@ def test_an_overloaded_site_does_not_hold_the_others_up():
     assert reader.stats.timeouts == 0
 
 
-class BlockingDmm(FakeDmm):
-    """Records when each read starts and ends; a read blocks until every DMM has started."""
-
-    def __init__(self, clock, barrier: threading.Barrier, events: list, name: int) -> None:
-        super().__init__(clock, 0.0, 0.0, 0.01, 1e-6, name, advance=False)
-        self.barrier, self.events, self.name = barrier, events, name
-
-    def read_samples(self) -> list[float]:
-        self.events.append(("start", self.name))
-        self.barrier.wait(timeout=2.0)  # breaks (error) if the reads were not in flight together
-        time.sleep(0.001)
-        self.events.append(("end", self.name))
-        return super().read_samples()
-
-
-def test_one_dmm_per_site_reads_all_sites_at_once():
+def test_one_dmm_per_site_reads_all_sites_in_one_window():
     clock = FakeClock()
-    events: list = []
-    barrier = threading.Barrier(4)
-    dmms = [BlockingDmm(clock, barrier, events, k) for k in range(4)]
+    dmms = [FakeDmm(clock, final=1e-3 * k, step=0.0, tau=0.01, sigma=1e-7, seed=k) for k in range(1, 5)]
     reader = _reader(dmms, clock)
-    fixed = TestStep(index=1, kind="offset", name="t", nplc=1.0, average=1, settle=Settle(wait_s=0.0),
+    fixed = TestStep(index=1, kind="offset", name="t", nplc=1.0, average=2, settle=Settle(wait_s=0.0),
                      stop_on_fail=False)
-    reader.read([1, 2, 3, 4], fixed)
-    # All four integrations were in flight before the first finished.
-    assert [kind for kind, _ in events[:4]] == ["start"] * 4
-    reader.close()
+    values = reader.read([1, 2, 3, 4], fixed)
+    assert values == {k: pytest.approx(1e-3 * k / GAIN, rel=1e-3) for k in range(1, 5)}
+    # Four sites of two 1-NPLC samples took the time of one site's integration (40 ms).
+    assert clock() == pytest.approx(0.04)
 
 
 class RecordingSwitch:

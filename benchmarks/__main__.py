@@ -155,6 +155,7 @@ def accuracy(sizes: Sizes, work: Path, fixed_path: Path) -> dict:
     return {
         "cmrr_rms_error_db": {"low": score.errors["cmrr_db_low"], "high": score.errors["cmrr_db_high"]},
         "misbin_rate": score.misbin_rate, "misbins": score.misbins, "escapes": score.escapes,
+        "wrongly_binned": score.wrong,
         "accuracy_parts": score.parts, "rms_errors": score.errors,
         "rms_errors_adaptive_common": adaptive_common.errors, "rms_errors_fixed_common": fixed_common.errors,
         "compare_parts": len(common), "accuracy_datalog": str(big.folder),

@@ -84,6 +84,8 @@ def print_report(figures: dict, console: Console | None = None) -> None:
                 "summary_load_and_summarise_s", "summary_summarise_only_s"):
         if key in figures:
             detail.add_row(key, _fmt(figures[key]))
+    for line in figures.get("wrongly_binned", []):
+        detail.add_row("misbinned or escaped", line)
     for transport, micros in figures.get("round_trip_us", {}).items():
         spread = figures.get("round_trip_spread", {}).get(transport, "")
         detail.add_row(f"*IDN? round trip, {transport}", f"{micros:.0f} us median, {spread}")

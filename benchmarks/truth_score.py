@@ -12,8 +12,9 @@ grade it was binned under (or which truly has no contact).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -114,6 +115,10 @@ class Score:
     misbins: int
     escapes: int
     errors: dict[str, float]        # RMS error vs truth: vos (V), cmrr slopes (V/V), dB figures
+    # Each misbinned or escaped part, named: "D00529 site 2: binned 1 grade A, true bin 2;
+    # ios true 2.012e-12 measured 1.98e-12 (limit -2e-12..2e-12)" (the figures the true
+    # value fails in the grade it was binned under), so a nonzero count can be looked into.
+    wrong: list[str] = field(default_factory=list)
 
     @property
     def misbin_rate(self) -> float:
@@ -131,16 +136,46 @@ def score_datalog(folder: Path, sequence: Sequence, table: LimitTable, only: set
     judged = parts[parts["PASS"].notna()]
     misbins = escapes = 0
     expected: dict[str, dict[tuple[str, str], float]] = {}
+    wrong: list[str] = []
     for row in judged.itertuples():
         part = truth[row.PART_ID]
-        if true_bin(part, sequence, table) != row.HARD_BIN:
-            misbins += 1
-        if row.PASS == 1 and _escaped(part, str(row.GRADE), sequence, table):
-            escapes += 1
+        expected_bin = true_bin(part, sequence, table)
+        misbinned = expected_bin != row.HARD_BIN
+        escaped = row.PASS == 1 and _escaped(part, str(row.GRADE), sequence, table)
+        misbins += misbinned
+        escapes += escaped
+        if misbinned or escaped:
+            wrong.append(_describe(row, part, expected_bin, escaped, results, sequence, table))
         if part.defect == "none":
             expected[row.PART_ID] = {(r.param, r.region or ""): r.value
                                      for r in true_results(part, sequence, table)}
-    return Score(len(judged), misbins, escapes, _errors(results, expected))
+    return Score(len(judged), misbins, escapes, _errors(results, expected), wrong)
+
+
+def _describe(row: Any, part: PartTruth, expected_bin: int, escaped: bool, results: pd.DataFrame,
+              sequence: Sequence, table: LimitTable) -> str:
+    """One line on a misbinned or escaped part: its bins, and each true figure that fails a
+    limit of the grade it was binned under, beside what the station measured."""
+    text = (f"{row.PART_ID} site {row.SITE_NUM}: binned {row.HARD_BIN} grade {row.GRADE}, "
+            f"true bin {expected_bin}{' (escape)' if escaped else ''}")
+    grade = table.grade(str(row.GRADE)) if row.PASS == 1 else None
+    if grade is None:
+        return text
+    mine = results[results["PART_ID"] == row.PART_ID]
+    for result in true_results(part, sequence, table):
+        limit = limit_for(grade, result.param, result.region)
+        if limit is None or check_value(result.value, limit):
+            continue
+        measured = mine.loc[(mine["PARAM"] == result.param)
+                            & (mine["REGION"].fillna("") == (result.region or "")), "RESULT"]
+        shown = f"{float(measured.iloc[-1]):.4g}" if len(measured) else "not logged"
+        text += (f"; {result.param} {result.region or ''} true {result.value:.4g} measured {shown} "
+                 f"(limit {_edge(limit.low)}..{_edge(limit.high)})")
+    return text
+
+
+def _edge(value: float | None) -> str:
+    return "none" if value is None else f"{value:.4g}"
 
 
 def _escaped(part: PartTruth, grade_name: str, sequence: Sequence, table: LimitTable) -> bool:

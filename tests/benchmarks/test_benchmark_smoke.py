@@ -40,6 +40,9 @@ def test_benchmark_smoke_gives_every_figure(tmp_path, capsys):
         assert key in figures, key
         assert figures[key] is not None and math.isfinite(figures[key]), (key, figures[key])
     assert set(figures["cmrr_rms_error_db"]) == {"low", "high"}
+    # every misbinned or escaped part is named, once
+    wrong = figures["wrongly_binned"]
+    assert max(figures["misbins"], figures["escapes"]) <= len(wrong) <= figures["misbins"] + figures["escapes"]
     assert figures["machine"]["cores"] >= 1 and figures["machine"]["cpu"]
     # every section says whether other work ran meanwhile, and its target keys are marked if so
     assert set(figures["load"]) == {"floor", "multisite", "accuracy", "overhead", "datalog", "summary", "soak",

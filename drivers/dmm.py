@@ -160,11 +160,10 @@ def read_together(dmms: Sequence[LoopDmm], samples: Sequence[int],
     queries = [dmm.read_query(count) for dmm, count in zip(dmms, samples, strict=True)]
     replies = query_together([(dmm.link, command, wait) for dmm, (command, wait) in zip(dmms, queries, strict=True)],
                              clock)
-    out = []
-    for dmm, count, (command, wait), (sent, reply) in zip(dmms, samples, queries, replies, strict=True):
-        out.append((sent, _samples_of(dmm.link, command, wait, reply)))
-        dmm.samples = count
-    return out
+    for dmm, count in zip(dmms, samples, strict=True):
+        dmm.samples = count     # the count went out with each query (a failure reconfigures)
+    return [(sent, _samples_of(dmm.link, command, wait, reply))
+            for dmm, (command, wait), (sent, reply) in zip(dmms, queries, replies, strict=True)]
 
 
 def _samples_of(link: ScpiLink, command: str, wait: float, reply: str | InstrumentError) -> list[float]:

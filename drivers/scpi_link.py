@@ -280,21 +280,10 @@ class ScpiLink:
     def _query_once(self, command: str, timeout_s: float | None) -> str:
         wait = self._timeout_s if timeout_s is None else float(timeout_s)
         with self._lock:
-            instrument = self._prepare(command)
-            try:
-                with self._timeout(instrument, wait):
-                    instrument.write(command)
-                    reply = instrument.read()
-            except BaseException as exc:
-                # A reply may still arrive: the next transaction must not take it for its own.
-                self._stale = True
-                if not isinstance(exc, Exception):
-                    raise               # Ctrl-C, SIGTERM: not an instrument failure
-                raise self._translate(exc, command, wait) from exc
-            finally:
-                self.transactions += 1
-            self._last_command = command
-        return reply.strip()
+            reply = self._receive(self._send(command, wait), command, wait)
+        if isinstance(reply, InstrumentError):
+            raise reply
+        return reply
 
     def _send(self, command: str, wait_s: float) -> Any:
         """The write half of a query (the caller holds the lock); the instrument it went out on."""
@@ -303,10 +292,11 @@ class ScpiLink:
             with self._timeout(instrument, wait_s):
                 instrument.write(command)
         except BaseException as exc:
+            # A reply may still arrive: the next transaction must not take it for its own.
             self._stale = True
             self.transactions += 1
             if not isinstance(exc, Exception):
-                raise
+                raise               # Ctrl-C, SIGTERM: not an instrument failure
             raise self._translate(exc, command, wait_s) from exc
         return instrument
 
@@ -319,7 +309,10 @@ class ScpiLink:
             self._stale = True
             if not isinstance(exc, Exception):
                 raise
-            return self._translate(exc, command, wait_s)
+            error = self._translate(exc, command, wait_s)
+            if error is not exc:
+                error.__cause__ = exc   # as `raise ... from exc` would chain it
+            return error
         finally:
             self.transactions += 1
         self._last_command = command

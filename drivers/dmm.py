@@ -2,7 +2,7 @@
 
 Reads can take long (100 NPLC at 50 Hz is 2 s per sample, doubled by autozero), so every
 query that waits for readings extends its timeout by the expected integration time.
-`read_together` (or `start()` then `fetch()`) lets several DMMs integrate at the same time.
+`LoopDmm.read_together` (or `start()` then `fetch()`) lets several DMMs integrate at the same time.
 """
 
 from __future__ import annotations
@@ -127,8 +127,17 @@ class LoopDmm:
     @staticmethod
     def read_together(dmms: Sequence[LoopDmm], samples: Sequence[int],
                       clock: Callable[[], float] = time.monotonic) -> list[tuple[float, list[float]]]:
-        """Several DMMs read at once: see `read_together` of this module."""
-        return read_together(dmms, samples, clock)
+        """`samples[i]` samples from each DMM (each on its own link), all triggered before any
+        is read (drivers.scpi_link.query_together), so they integrate at the same time; per
+        DMM, (clock time its query was sent, its samples). A DMM whose query failed is asked
+        again alone under its link's retry policy, the failed try counting as the first."""
+        queries = [dmm.read_query(count) for dmm, count in zip(dmms, samples, strict=True)]
+        replies = query_together([(dmm.link, command, wait)
+                                  for dmm, (command, wait) in zip(dmms, queries, strict=True)], clock)
+        for dmm, count in zip(dmms, samples, strict=True):
+            dmm.samples = count     # the count went out with each query (a failure reconfigures)
+        return [(sent, _samples_of(dmm.link, command, wait, reply))
+                for dmm, (command, wait), (sent, reply) in zip(dmms, queries, replies, strict=True)]
 
     def start(self) -> None:
         """INIT: start integrating now; collect with fetch()."""
@@ -149,21 +158,6 @@ class LoopDmm:
 
     def _wait_s(self) -> float:
         return self.link.timeout_s + self.integration_time_s
-
-
-def read_together(dmms: Sequence[LoopDmm], samples: Sequence[int],
-                  clock: Callable[[], float] = time.monotonic) -> list[tuple[float, list[float]]]:
-    """`samples[i]` samples from each DMM (each on its own link), all triggered before any is
-    read (drivers.scpi_link.query_together), so they integrate at the same time; per DMM,
-    (clock time its query was sent, its samples). A DMM whose query failed is asked again
-    alone under its link's retry policy, the failed try counting as the first."""
-    queries = [dmm.read_query(count) for dmm, count in zip(dmms, samples, strict=True)]
-    replies = query_together([(dmm.link, command, wait) for dmm, (command, wait) in zip(dmms, queries, strict=True)],
-                             clock)
-    for dmm, count in zip(dmms, samples, strict=True):
-        dmm.samples = count     # the count went out with each query (a failure reconfigures)
-    return [(sent, _samples_of(dmm.link, command, wait, reply))
-            for dmm, (command, wait), (sent, reply) in zip(dmms, queries, replies, strict=True)]
 
 
 def _samples_of(link: ScpiLink, command: str, wait: float, reply: str | InstrumentError) -> list[float]:

@@ -2,7 +2,7 @@
 
 The sequencer changes a source, then asks for the offsets of the live sites here. With one
 DMM per site, the DMMs integrate at the same time: a READ? goes to every DMM before any reply
-is read (drivers/dmm.read_together), so the integrations overlap with no thread per DMM. With a
+is read (drivers/dmm.LoopDmm.read_together), so the integrations overlap with no thread per DMM. With a
 single DMM behind the scanner, the sites are read one after another (while one is read,
 the others go on settling).
 

@@ -185,8 +185,6 @@ def _read_csv(path: Path, dtypes: dict[str, object], empty: dict[str, list[str]]
             frame[column] = pd.Series(np.nan, index=frame.index, dtype=dtype)
         elif dtype == "category":  # sorted categories, as the rest of the review tools expect
             frame[column] = frame[column].cat.reorder_categories(sorted(frame[column].cat.categories))
-        elif frame[column].dtype != dtype and dtype != "str":
-            frame[column] = frame[column].astype(dtype)
     return frame
 
 

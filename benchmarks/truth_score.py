@@ -21,7 +21,7 @@ import pandas as pd
 
 from sim_instruments.model import vos_true
 from sim_instruments.population import PartTruth
-from station.config.limit_tables import LimitTable
+from station.config.limit_tables import Grade, Limit, LimitTable
 from station.config.sequence import Sequence
 from station.judge.budget import PartFigures
 from station.judge.grading import Result, check_value, contact_verdict, grade_part, limit_for
@@ -162,10 +162,7 @@ def _describe(row: Any, part: PartTruth, expected_bin: int, escaped: bool, resul
     if grade is None:
         return text
     mine = results[results["PART_ID"] == row.PART_ID]
-    for result in true_results(part, sequence, table):
-        limit = limit_for(grade, result.param, result.region)
-        if limit is None or check_value(result.value, limit):
-            continue
+    for result, limit in _failing(part, grade, sequence, table):
         measured = mine.loc[(mine["PARAM"] == result.param)
                             & (mine["REGION"].fillna("") == (result.region or "")), "RESULT"]
         shown = f"{float(measured.iloc[-1]):.4g}" if len(measured) else "not logged"
@@ -179,14 +176,17 @@ def _edge(value: float | None) -> str:
 
 
 def _escaped(part: PartTruth, grade_name: str, sequence: Sequence, table: LimitTable) -> bool:
-    if true_contact(part) != "ok":
-        return True
-    grade = table.grade(grade_name)
+    return true_contact(part) != "ok" or bool(_failing(part, table.grade(grade_name), sequence, table))
+
+
+def _failing(part: PartTruth, grade: Grade, sequence: Sequence, table: LimitTable) -> list[tuple[Result, Limit]]:
+    """Each true figure of `part` that fails a limit of `grade`, with that limit."""
+    failing = []
     for result in true_results(part, sequence, table):
         limit = limit_for(grade, result.param, result.region)
         if limit is not None and not check_value(result.value, limit):
-            return True
-    return False
+            failing.append((result, limit))
+    return failing
 
 
 ERROR_FIGURES = {"vos": ("vos", ""), "cmrr_slope_low": ("cmrr_slope", "low"),

@@ -21,7 +21,7 @@ from drivers.generator import FunctionGenerator
 from drivers.handler import ManualHandler, PartHandler
 from drivers.registry import DMM, FORCE, GENERATOR, HANDLER, SUPPLY, SWITCH, DriverSettings, Role
 from drivers.retry import NO_RETRY
-from drivers.scpi_link import ScpiLink
+from drivers.scpi_link import ScpiLink, check_errors_together
 from drivers.supply import DualRailSupply
 from drivers.switch import FixtureSwitch
 from station.config.bench_config import BenchConfig
@@ -221,8 +221,7 @@ def _known_state(bench: Bench) -> None:
     bench.switch.open_all()
     for dmm in bench.dmms:
         dmm.configure(_DEFAULT_NPLC, _DEFAULT_RANGE_V, autozero=True)
-    for link in bench.all_links().values():
-        link.check_errors()
+    check_errors_together(list(bench.all_links().values()))
 
 
 def ask_operator(text: str) -> str:
